@@ -1,0 +1,108 @@
+"""Every error upwell raises on purpose, in one place.
+
+Each class says when it is raised. Lower-level exceptions (pypdf, python-docx, LanceDB, OS) are
+mapped to these at the boundary, so callers catch one family and the CLI can print one clear line
+with a distinct exit code instead of a traceback.
+"""
+
+from __future__ import annotations
+
+
+class UpwellError(Exception):
+    """Base of every error upwell raises on purpose."""
+
+    exit_code = 1
+
+
+class UsageError(UpwellError):
+    """The command line or a setting is wrong."""
+
+    exit_code = 2
+
+
+# --- extraction: a document that cannot be turned into text --------------------------------
+
+
+class ExtractionError(UpwellError):
+    """A document could not be extracted; the message is the reason shown in status."""
+
+
+class EmptyDocument(ExtractionError):
+    """The file has no bytes, or no text at all after extraction."""
+
+
+class CorruptDocument(ExtractionError):
+    """The file is damaged or is not what its suffix says (a .docx that is not a zip, ...)."""
+
+
+class EncryptedDocument(ExtractionError):
+    """The file is encrypted; upwell does not guess passwords."""
+
+
+class UnsupportedDocument(ExtractionError):
+    """The file's format, or a feature inside it (a DOCTYPE in OOXML), is not supported."""
+
+
+class DocumentTooLarge(ExtractionError):
+    """The file, or what it would inflate to, is larger than the configured limit."""
+
+
+class NoTextLayer(ExtractionError):
+    """A PDF whose pages carry no extractable text (scanned images)."""
+
+
+class DocumentUnreadable(ExtractionError):
+    """The file vanished or became unreadable between listing and reading."""
+
+
+# --- sources ---------------------------------------------------------------------------------
+
+
+class SourceError(UpwellError):
+    """A source as a whole cannot be listed; never treated as an empty source."""
+
+
+class SourceUnreachable(SourceError):
+    """The source root is missing, not a folder, or cannot be reached."""
+
+
+class SourcePermission(SourceError):
+    """The source root exists but cannot be read."""
+
+
+# --- index -----------------------------------------------------------------------------------
+
+
+class StoreError(UpwellError):
+    """A problem with the index folder itself."""
+
+
+class IndexLocked(StoreError):
+    """Another writer holds the index lock."""
+
+    exit_code = 4
+
+
+class ModelMismatch(StoreError):
+    """The index was built with another embedding model or chunking settings."""
+
+
+class UnknownVersion(StoreError):
+    """A commit id, version, tag or time does not name anything in the history."""
+
+
+class IndexMissing(StoreError):
+    """A read-only command was pointed at a folder that holds no upwell index."""
+
+
+class ConfirmationRequired(UpwellError):
+    """A destructive step needs confirmation and none was given (no terminal and no --yes)."""
+
+    exit_code = 2
+
+
+# --- embedding -------------------------------------------------------------------------------
+
+
+class EmbedderError(UpwellError):
+    """The embedding model could not be loaded or failed to run."""

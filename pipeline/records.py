@@ -1,0 +1,155 @@
+"""Plain values that flow between the stages of upwell.
+
+Every arrow in the pipeline carries one of these frozen dataclasses, never an open file or a
+database handle, so each stage can be called and tested on its own.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+
+@dataclass(frozen=True)
+class Anchor:
+    """Where a piece of text sits in its document; the citation a search result carries.
+
+    Only the fields that apply to the format are set: ``page`` for PDF, ``heading`` for Word and
+    Markdown (a path such as ``"Procedure > Loading order"``), ``start``/``end`` in seconds for
+    WebVTT and SRT cues, ``line_start``/``line_end`` (1-based, inclusive) for plain text.
+    """
+
+    page: int | None = None
+    heading: str | None = None
+    start: float | None = None
+    end: float | None = None
+    line_start: int | None = None
+    line_end: int | None = None
+
+
+# Segment kinds. The chunker treats them differently: prose is split into sentences, the others
+# are kept whole unless longer than the chunk maximum.
+PARAGRAPH = "paragraph"
+LIST_ITEM = "list_item"
+TABLE_ROW = "table_row"
+CUE = "cue"
+HEADING = "heading"
+SEGMENT_KINDS = (PARAGRAPH, LIST_ITEM, TABLE_ROW, CUE, HEADING)
+
+
+@dataclass(frozen=True)
+class Segment:
+    """One block of text in reading order (a paragraph, list item, table row or cue)."""
+
+    text: str
+    anchor: Anchor
+    kind: str = PARAGRAPH
+
+
+@dataclass(frozen=True)
+class Extracted:
+    """What an extractor returns for one file: its text in reading order, with anchors.
+
+    ``warnings`` carries things the user should know that did not stop extraction, such as a PDF
+    page without a text layer.
+    """
+
+    media_type: str
+    segments: tuple[Segment, ...]
+    title: str | None = None
+    warnings: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class Fingerprint:
+    """Cheap change detector for a source item: stat data for files, an ETag or blob id elsewhere."""
+
+    size: int
+    mtime_ns: int = 0
+    inode: int = 0
+    tag: str = ""
+
+
+@dataclass(frozen=True)
+class SourceItem:
+    """An item a connector has listed: which source, its key there, and its fingerprint."""
+
+    source: str
+    key: str
+    fingerprint: Fingerprint
+
+    @property
+    def doc_id(self) -> str:
+        return f"{self.source}:{self.key}"
+
+
+@dataclass(frozen=True)
+class Chunk:
+    """A piece of a document as it is embedded and stored.
+
+    ``context`` is the overlap taken from the end of the previous chunk; the model sees
+    ``embed_text`` (context and text), and ``text_hash`` is the SHA-256 of exactly that string.
+    """
+
+    doc_id: str
+    ordinal: int
+    text: str
+    context: str
+    text_hash: str
+    tokens: int
+    page_start: int | None = None
+    page_end: int | None = None
+    heading: str | None = None
+    t_start: float | None = None
+    t_end: float | None = None
+    line_start: int | None = None
+    line_end: int | None = None
+
+    @property
+    def embed_text(self) -> str:
+        return join_context(self.context, self.text)
+
+
+def join_context(context: str, text: str) -> str:
+    """The exact string the model embeds for a chunk."""
+    return f"{context}\n{text}" if context else text
+
+
+@dataclass(frozen=True)
+class ChunkSettings:
+    """Chunking parameters; recorded in the index at creation."""
+
+    min_tokens: int = 48
+    max_tokens: int = 200
+    overlap_tokens: int = 40
+    # A unit whose hash is 0 modulo this number is a cut candidate (once min_tokens is reached).
+    cut_modulus: int = 4
+
+    def as_dict(self) -> dict[str, int]:
+        return {
+            "min_tokens": self.min_tokens,
+            "max_tokens": self.max_tokens,
+            "overlap_tokens": self.overlap_tokens,
+            "cut_modulus": self.cut_modulus,
+        }
+
+
+@dataclass(frozen=True)
+class DocumentOutcome:
+    """What a sync did with one document."""
+
+    doc_id: str
+    path: str
+    outcome: str  # added | modified | removed | moved | unchanged | failed
+    reason: str | None = None
+    moved_from: str | None = None
+
+
+@dataclass(frozen=True)
+class Limits:
+    """Input limits that protect memory; settings, with safe defaults."""
+
+    max_file_bytes: int = 200 * 1024 * 1024
+    # Total uncompressed size of a .docx's parts, and the largest compression ratio of one part.
+    max_inflated_bytes: int = 256 * 1024 * 1024
+    max_inflate_ratio: float = 200.0
+    extra: dict[str, int] = field(default_factory=dict)
