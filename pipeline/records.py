@@ -6,6 +6,7 @@ database handle, so each stage can be called and tested on its own.
 
 from __future__ import annotations
 
+import json
 from dataclasses import dataclass, field
 
 
@@ -153,3 +154,16 @@ class Limits:
     max_inflated_bytes: int = 256 * 1024 * 1024
     max_inflate_ratio: float = 200.0
     extra: dict[str, int] = field(default_factory=dict)
+
+
+def segments_to_json(segments: tuple[Segment, ...] | list[Segment]) -> str:
+    """Stored form of extracted segments: compact JSON, anchors without empty fields."""
+    out = []
+    for s in segments:
+        anchor = {k: v for k, v in vars(s.anchor).items() if v is not None}
+        out.append([s.text, s.kind, anchor])
+    return json.dumps(out, ensure_ascii=False, separators=(",", ":"))
+
+
+def segments_from_json(data: str) -> tuple[Segment, ...]:
+    return tuple(Segment(text=t, kind=k, anchor=Anchor(**a)) for t, k, a in json.loads(data))

@@ -1,0 +1,249 @@
+"""The ``upwell`` command line: parses, calls one ``Index`` method, prints.
+
+Exit codes: 0 done; 1 error; 2 usage error or a confirmation that was not given; 3 committed
+but some documents failed; 4 another writer holds the index.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import textwrap
+from collections.abc import Sequence
+from typing import Any
+
+from .errors import UpwellError
+from .index import DEFAULT_INDEX, Index, default_index_path
+from .progress import Progress
+
+EXIT_OK, EXIT_ERROR, EXIT_USAGE, EXIT_PARTIAL, EXIT_LOCKED = 0, 1, 2, 3, 4
+
+DESCRIPTION = """\
+upwell keeps a document vector index current. It reads folders of PDF, Word (.docx),
+Markdown, plain text and WebVTT/SRT transcripts, splits them into chunks whose boundaries
+survive edits, embeds only chunks whose text changed, and commits each batch as one version
+of a local LanceDB table that you can search with citations.
+"""
+
+EPILOG = f"""\
+examples:
+  upwell sync sample_corpus                 build or update the index in ./{DEFAULT_INDEX}
+  upwell search "torque for the crank bolts" -k 3
+  upwell status                             documents, chunks, failures, last commit
+  upwell --index /var/lib/upwell/ix sync /srv/share/handbook --json
+
+The index folder is --index, else $UPWELL_INDEX, else ./{DEFAULT_INDEX}.
+Run `upwell COMMAND --help` for each command's options.
+"""
+
+
+def _json_out(data: Any) -> None:
+    json.dump(data, sys.stdout, indent=2, ensure_ascii=False, default=str)
+    sys.stdout.write("\n")
+
+
+def _confirm_on_terminal(message: str) -> bool:
+    """Ask on the terminal; without one, refuse (the caller says to use --yes)."""
+    if not sys.stdin.isatty():
+        return False
+    sys.stderr.write(message + " [y/N] ")
+    sys.stderr.flush()
+    return sys.stdin.readline().strip().lower() in ("y", "yes")
+
+
+# --- commands --------------------------------------------------------------------------------
+
+
+def cmd_sync(args: argparse.Namespace, index: Index) -> int:
+    report = index.sync(args.paths, yes=args.yes, confirm=_confirm_on_terminal)
+    data = report.as_dict()
+    if args.json:
+        _json_out(data)
+    else:
+        d, c = data["documents"], data["chunks"]
+        print(
+            f"documents: {d['added']} added, {d['modified']} modified, {d['removed']} removed, "
+            f"{d['moved']} moved, {d['unchanged']} unchanged, {d['failed']} failed"
+        )
+        print(f"chunks:    {c['embedded']} embedded, {c['reused']} reused, {c['deleted']} deleted")
+        if data["commit"]:
+            n = len(data["commits"])
+            more = f" ({n} commits)" if n > 1 else ""
+            print(f"commit:    {data['commit']} (version {data['version']}){more}")
+        else:
+            print(f"commit:    none, nothing changed (version {data['version']})")
+        for f in data["failures"]:
+            print(f"failed:    {f['source']}/{f['path']}: {f['reason']}", file=sys.stderr)
+    return EXIT_PARTIAL if data["failures"] else EXIT_OK
+
+
+def cmd_search(args: argparse.Namespace, index: Index) -> int:
+    hits = index.search(args.query, k=args.k, source=args.source)
+    if args.json:
+        _json_out(
+            {
+                "query": args.query,
+                "results": [
+                    {
+                        "score": round(h.score, 6),
+                        "path": h.path,
+                        "source": h.source,
+                        "text": h.text,
+                        "page": h.page,
+                        "page_end": h.page_end,
+                        "heading": h.heading,
+                        "start": h.start,
+                        "end": h.end,
+                        "line_start": h.line_start,
+                        "line_end": h.line_end,
+                        "doc_id": h.doc_id,
+                    }
+                    for h in hits
+                ],
+            }
+        )
+        return EXIT_OK
+    if not hits:
+        print("no results: the index is empty")
+    width = 96
+    for n, h in enumerate(hits, 1):
+        print(f"{n:>2}. {h.score:.3f}  {h.citation()}")
+        snippet = " ".join(h.text.split())
+        if len(snippet) > args.snippet:
+            snippet = snippet[: args.snippet].rsplit(" ", 1)[0] + " …"
+        print(textwrap.indent(textwrap.fill(snippet, width - 6), "      "))
+    return EXIT_OK
+
+
+def cmd_status(args: argparse.Namespace, index: Index) -> int:
+    st = index.status()
+    if args.json:
+        _json_out(st)
+        return EXIT_OK
+    t = st["totals"]
+    print(f"index:     {st['index']} (version {st['version']})")
+    print(f"model:     {st['model']['id']} ({st['model']['dimension']} dimensions)")
+    print(
+        f"totals:    {t['documents']} documents, {t['chunks']} chunks, "
+        f"{t['failed']} failed, {t['commits']} commits"
+    )
+    for s in st["sources"]:
+        print(
+            f"source:    {s['name']}: {s['documents']} documents, {s['chunks']} chunks, "
+            f"{s['failed']} failed"
+        )
+    lc = st["last_commit"]
+    if lc:
+        d = lc["documents"]
+        print(
+            f"last:      {lc['id']} at {lc['time']} ({lc['trigger']}): {d['added']} added, "
+            f"{d['modified']} modified, {d['removed']} removed, {lc['chunks']['embedded']} "
+            "chunks embedded"
+        )
+    for f in st["failures"]:
+        kept = "last good version still searchable" if f["last_good_searchable"] else "not indexed"
+        print(f"failed:    {f['source']}/{f['path']}: {f['reason']} ({kept})")
+    for w in st["warnings"]:
+        print(f"warning:   {w['source']}/{w['path']}: {w['warning']}")
+    return EXIT_OK
+
+
+# --- parser ------------------------------------------------------------------------------------
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="upwell",
+        description=DESCRIPTION,
+        epilog=EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    parser.add_argument(
+        "--index",
+        metavar="DIR",
+        default=None,
+        help=f"index folder (default: $UPWELL_INDEX or ./{DEFAULT_INDEX})",
+    )
+    parser.add_argument(
+        "--model",
+        metavar="SPEC",
+        default=None,
+        help="embedding model for a new index: 'default' (bundled all-MiniLM-L6-v2, ONNX), "
+        "'onnx:MODEL.onnx,TOKENIZER.json' for another export, or 'hash' (no model; for tests). "
+        "An existing index uses the model it was built with.",
+    )
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    sub.required = True
+
+    p = sub.add_parser(
+        "sync",
+        help="bring the index in line with one or more folders",
+        description="Read each folder, and index what changed since the last sync: new and "
+        "edited files are extracted and chunked, only chunks whose text is new are embedded, "
+        "removed files leave the index (and the tombstone log records them). Each folder is a "
+        "source named after the folder. Each batch of changes is one commit.",
+        epilog="examples:\n  upwell sync sample_corpus\n  upwell sync /srv/share/handbook "
+        "/srv/share/policies --json\n\nexit codes: 0 done, 3 committed but some documents "
+        "failed (see `upwell status`), 2 a removal needed --yes, 4 another writer is running",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    p.add_argument("paths", nargs="+", metavar="PATH", help="folder to sync (a source each)")
+    p.add_argument(
+        "--yes",
+        action="store_true",
+        help="do not ask before removing more than half of a source's documents",
+    )
+    p.add_argument("--json", action="store_true", help="print the report as JSON")
+    p.set_defaults(func=cmd_sync, writes=True)
+
+    p = sub.add_parser(
+        "search",
+        help="find the chunks most similar to a query, with citations",
+        description="Embed QUERY with the index's model and return the K chunks with the highest "
+        "cosine similarity, each with its citation: file, page, heading or time range.",
+        epilog='examples:\n  upwell search "how do I return a damaged frame"\n  upwell search '
+        '"spoke tension" -k 5 --json',
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    p.add_argument("query", metavar="QUERY")
+    p.add_argument("-k", type=int, default=5, help="number of results (default 5)")
+    p.add_argument("--source", default=None, help="only search this source")
+    p.add_argument("--snippet", type=int, default=240, help="characters of text to show")
+    p.add_argument("--json", action="store_true", help="print results as JSON")
+    p.set_defaults(func=cmd_search, writes=False)
+
+    p = sub.add_parser(
+        "status",
+        help="what the index holds, what failed and why, the last commit",
+        description="Totals and per-source counts, every document that failed to extract with "
+        "its reason (its last good version stays searchable), extraction warnings, the model "
+        "and the last commit. Needs no lock: safe while a sync runs.",
+        epilog="example:\n  upwell status --json",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    p.add_argument("--json", action="store_true", help="print status as JSON")
+    p.set_defaults(func=cmd_status, writes=False)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    index = Index(
+        args.index or default_index_path(),
+        model=args.model,
+        progress=Progress(enabled=None),
+    )
+    try:
+        return int(args.func(args, index))
+    except UpwellError as exc:
+        print(f"upwell: error: {exc}", file=sys.stderr)
+        return exc.exit_code
+    except KeyboardInterrupt:
+        print("upwell: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

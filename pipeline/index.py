@@ -1,0 +1,324 @@
+"""The Python face of upwell: an ``Index`` with sync, search and status.
+
+Everything the command line does is a method here, so all of it is scriptable and testable from
+Python; ``cli.py`` only parses arguments and prints.
+
+    >>> from pipeline.index import Index
+    >>> ix = Index(".upwell")
+    >>> report = ix.sync(["sample_corpus"])
+    >>> for hit in ix.search("torque for the crank bolts", k=3):
+    ...     print(f"{hit.score:.3f} {hit.citation()}")
+"""
+
+from __future__ import annotations
+
+import json
+import os
+from collections.abc import Callable, Sequence
+from dataclasses import asdict, dataclass
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from connectors.folder import FolderSource
+
+from . import formats
+from .embedding import make_embedder
+from .errors import UsageError
+from .locking import writer_lock
+from .progress import Progress
+from .records import ChunkSettings, Limits
+from .store import FORMAT_VERSION, Store, quote
+from .sync import Source, SyncEngine, SyncReport
+
+DEFAULT_INDEX = ".upwell"
+DEFAULT_MODEL = "default"
+SEARCH_COLUMNS = [
+    "chunk_id",
+    "doc_id",
+    "source",
+    "path",
+    "ordinal",
+    "text",
+    "page_start",
+    "page_end",
+    "heading",
+    "t_start",
+    "t_end",
+    "line_start",
+    "line_end",
+]
+
+
+def default_index_path() -> str:
+    return os.environ.get("UPWELL_INDEX") or DEFAULT_INDEX
+
+
+@dataclass(frozen=True)
+class Hit:
+    """One search result: the chunk text, its cosine similarity and its citation."""
+
+    score: float
+    source: str
+    path: str
+    text: str
+    page: int | None
+    page_end: int | None
+    heading: str | None
+    start: float | None
+    end: float | None
+    line_start: int | None
+    line_end: int | None
+    doc_id: str
+    chunk_id: str
+    ordinal: int
+
+    def citation(self) -> str:
+        """``path, p. 3``, ``path > Heading``, ``path @ 00:01:05-00:01:20`` and so on."""
+        parts = [f"{self.source}/{self.path}"]
+        if self.page is not None:
+            pages = (
+                f"p. {self.page}"
+                if self.page_end in (None, self.page)
+                else f"pp. {self.page}-{self.page_end}"
+            )
+            parts.append(pages)
+        if self.heading:
+            parts.append(f"§ {self.heading}")
+        if self.start is not None:
+            parts.append(f"{_clock(self.start)}-{_clock(self.end or self.start)}")
+        elif self.line_start is not None and self.page is None and not self.heading:
+            parts.append(f"lines {self.line_start}-{self.line_end}")
+        return ", ".join(parts)
+
+    def as_dict(self) -> dict[str, Any]:
+        return asdict(self)
+
+
+def _clock(seconds: float) -> str:
+    whole = int(seconds)
+    return f"{whole // 3600:02d}:{whole // 60 % 60:02d}:{whole % 60:02d}"
+
+
+class Index:
+    """One upwell index folder. Writers take the folder's lock; readers never do."""
+
+    def __init__(
+        self,
+        path: str | os.PathLike[str] | None = None,
+        *,
+        model: str | None = None,
+        chunking: ChunkSettings | None = None,
+        limits: Limits | None = None,
+        progress: Progress | None = None,
+        batch_documents: int = 200,
+        max_removal_fraction: float = 0.5,
+    ) -> None:
+        self.path = Path(path or default_index_path())
+        self._model_spec = model
+        self._chunking = chunking
+        self.limits = limits or Limits()
+        self.progress = progress or Progress(enabled=False)
+        self.batch_documents = batch_documents
+        self.max_removal_fraction = max_removal_fraction
+        self._store: Store | None = None
+        self._embedder: Any = None
+
+    # --- opening --------------------------------------------------------------------------------
+
+    @property
+    def exists(self) -> bool:
+        return Store.exists(self.path)
+
+    def store(self) -> Store:
+        """The open store, for readers; IndexMissing if there is no index here."""
+        if self._store is None:
+            self._store = Store.open(self.path)
+        return self._store
+
+    def embedder(self) -> Any:
+        if self._embedder is None:
+            spec = self._model_spec
+            if spec is None:
+                spec = self.store().settings().get("model", DEFAULT_MODEL) if self.exists else None
+            self._embedder = make_embedder(spec or DEFAULT_MODEL)
+        return self._embedder
+
+    def _wanted_settings(self) -> dict[str, Any]:
+        emb = self.embedder()
+        return {
+            "format_version": FORMAT_VERSION,
+            "model": self._model_spec or DEFAULT_MODEL,
+            "model_id": emb.model_id,
+            "dimension": emb.dimension,
+            "max_input_tokens": emb.max_input_tokens,
+            "embedder": emb.describe(),
+            "chunking": (self._chunking or ChunkSettings()).as_dict(),
+            "created_at": datetime.now(UTC).isoformat(timespec="seconds"),
+        }
+
+    def _store_for_writing(self) -> Store:
+        if not self.exists:
+            self._store = Store.create(self.path, self._wanted_settings())
+            return self._store
+        store = self.store()
+        have = store.settings()
+        if self._model_spec is not None:
+            store.check_settings({"model_id": self.embedder().model_id}, ["model_id"])
+        if self._chunking is not None:
+            store.check_settings({"chunking": self._chunking.as_dict()}, ["chunking"])
+        else:
+            self._chunking = ChunkSettings(**have["chunking"])
+        store.check_settings({"model_id": self.embedder().model_id}, ["model_id"])
+        store.refresh()
+        return store
+
+    # --- writing --------------------------------------------------------------------------------
+
+    def sync(
+        self,
+        sources: Sequence[str | os.PathLike[str] | Source],
+        *,
+        yes: bool = False,
+        confirm: Callable[[str], bool] | None = None,
+        trigger: str = "sync",
+    ) -> SyncReport:
+        """Bring the index in line with the sources; one commit per batch of changed documents.
+
+        A folder path becomes a folder source named after the folder. Safe to re-run after a
+        crash: the index converges to what a clean run would leave.
+        """
+        resolved = [self._as_source(s) for s in sources]
+        names = [s.name for s in resolved]
+        if len(set(names)) != len(names):
+            raise UsageError(f"two sources share a name: {names}; folders must have distinct names")
+        with writer_lock(self.path):
+            store = self._store_for_writing()
+            engine = SyncEngine(
+                store,
+                self.embedder(),
+                self._chunking or ChunkSettings(),
+                self.limits,
+                batch_documents=self.batch_documents,
+                max_removal_fraction=self.max_removal_fraction,
+                progress=self.progress,
+            )
+            return engine.sync(resolved, yes=yes, confirm=confirm, trigger=trigger)
+
+    @staticmethod
+    def _as_source(source: str | os.PathLike[str] | Source) -> Source:
+        if isinstance(source, (str, os.PathLike)):
+            return FolderSource.from_path(
+                source, accept=lambda key: formats.media_type_for(key) is not None
+            )
+        return source
+
+    # --- reading --------------------------------------------------------------------------------
+
+    def search(self, query: str, k: int = 10, *, source: str | None = None) -> list[Hit]:
+        """The ``k`` chunks most similar to ``query`` by cosine similarity, best first."""
+        if not query.strip():
+            raise UsageError("the search query is empty")
+        if k < 1:
+            raise UsageError(f"-k must be at least 1, not {k}")
+        store = self.store()
+        vector = np.asarray(self.embedder().embed([query])[0], dtype=np.float32)
+        q = store.table("chunks").search(vector, vector_column_name="vector").metric("cosine")
+        if source is not None:
+            q = q.where(f"source = {quote(source)}", prefilter=True)
+        rows = q.select(SEARCH_COLUMNS).limit(k).to_arrow().to_pylist()
+        return [
+            Hit(
+                # LanceDB's cosine distance is 1 - cosine similarity.
+                score=float(1.0 - r["_distance"]),
+                source=r["source"],
+                path=r["path"],
+                text=r["text"],
+                page=r["page_start"],
+                page_end=r["page_end"],
+                heading=r["heading"],
+                start=r["t_start"],
+                end=r["t_end"],
+                line_start=r["line_start"],
+                line_end=r["line_end"],
+                doc_id=r["doc_id"],
+                chunk_id=r["chunk_id"],
+                ordinal=r["ordinal"],
+            )
+            for r in rows
+        ]
+
+    def status(self) -> dict[str, Any]:
+        """Totals, per-source counts, failed documents with reasons, model and last commit."""
+        store = self.store()
+        docs = store.all_documents()
+        chunk_counts = store.chunk_counts()
+        commits = store.commits()
+        settings = store.settings()
+        per_source: dict[str, dict[str, Any]] = {}
+        failures = []
+        warnings = []
+        for d in docs:
+            s = per_source.setdefault(
+                d["source"],
+                {"name": d["source"], "documents": 0, "failed": 0, "chunks": 0, "last_update": None},
+            )
+            if d["content_hash"]:
+                s["documents"] += 1
+            if d["status"] == "failed":
+                s["failed"] += 1
+                failures.append(
+                    {
+                        "source": d["source"],
+                        "path": d["path"],
+                        "reason": d["error"],
+                        "since": d["updated_at"],
+                        "last_good_searchable": bool(d["content_hash"]),
+                    }
+                )
+            for w in json.loads(d["warnings"] or "[]"):
+                warnings.append({"source": d["source"], "path": d["path"], "warning": w})
+            if s["last_update"] is None or (d["updated_at"] or "") > s["last_update"]:
+                s["last_update"] = d["updated_at"]
+        for name, n in chunk_counts.items():
+            per_source.setdefault(
+                name, {"name": name, "documents": 0, "failed": 0, "chunks": 0, "last_update": None}
+            )["chunks"] = n
+        last = commits[-1] if commits else None
+        return {
+            "index": str(self.path),
+            "totals": {
+                "documents": sum(s["documents"] for s in per_source.values()),
+                "chunks": sum(chunk_counts.values()),
+                "failed": len(failures),
+                "commits": len(commits),
+            },
+            "sources": sorted(per_source.values(), key=lambda s: s["name"]),
+            "failures": sorted(failures, key=lambda f: (f["source"], f["path"])),
+            "warnings": warnings,
+            "model": {
+                "name": settings.get("model"),
+                "id": settings.get("model_id"),
+                "dimension": settings.get("dimension"),
+                "max_input_tokens": settings.get("max_input_tokens"),
+            },
+            "chunking": settings.get("chunking"),
+            "version": int(store.table("chunks").version),
+            "last_commit": _commit_summary(last) if last else None,
+        }
+
+
+def _commit_summary(row: dict[str, Any]) -> dict[str, Any]:
+    return {
+        "id": row["commit_id"],
+        "time": row["time"],
+        "trigger": row["trigger"],
+        "version": row["chunks_version"],
+        "documents": {
+            k: row[f"documents_{k}"]
+            for k in ("added", "modified", "removed", "moved", "unchanged", "failed")
+        },
+        "chunks": {k: row[f"chunks_{k}"] for k in ("embedded", "reused", "deleted")},
+    }

@@ -1,0 +1,400 @@
+"""The index on disk: one LanceDB database folder holding six tables.
+
+| table        | one row per          | role                                                     |
+|--------------|----------------------|----------------------------------------------------------|
+| chunks       | chunk                | the truth for what is searchable (text, anchors, vector)  |
+| documents    | document             | fingerprint, content hash, status, extracted segments     |
+| tombstones   | removal              | the log of every document that left the index             |
+| commits      | commit               | the history: counts and the version of every table        |
+| vectors      | text hash            | the embedding cache, so no text is embedded twice         |
+| settings     | key                  | model, dimension and chunking the index was built with    |
+
+This module only knows tables and rows. It does not decide what changed (``sync.py`` does) and
+it never embeds. Every write that must not be repeated is keyed so that repeating it is a no-op,
+which is what lets a crashed batch be re-run safely.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+from collections.abc import Iterable, Sequence
+from pathlib import Path
+from typing import Any
+
+import lancedb
+import numpy as np
+import pyarrow as pa
+
+from .errors import IndexMissing, ModelMismatch, StoreError
+
+FORMAT_VERSION = 1
+_IN_BATCH = 400  # ids per "IN (...)" filter; keeps filter strings short
+
+
+def quote(value: str) -> str:
+    """A SQL string literal for a LanceDB filter. Only ids and hashes ever go in filters."""
+    return "'" + value.replace("'", "''") + "'"
+
+
+def in_filter(column: str, values: Iterable[str]) -> str:
+    return f"{column} IN ({', '.join(quote(v) for v in values)})"
+
+
+def _batched(values: Sequence[str], size: int = _IN_BATCH) -> Iterable[Sequence[str]]:
+    for i in range(0, len(values), size):
+        yield values[i : i + size]
+
+
+def chunks_schema(dimension: int) -> pa.Schema:
+    return pa.schema(
+        [
+            pa.field("chunk_id", pa.string(), nullable=False),
+            pa.field("doc_id", pa.string(), nullable=False),
+            pa.field("source", pa.string()),
+            pa.field("path", pa.string()),
+            pa.field("ordinal", pa.int32()),
+            pa.field("text", pa.string()),
+            pa.field("context", pa.string()),
+            pa.field("text_hash", pa.string()),
+            pa.field("tokens", pa.int32()),
+            pa.field("page_start", pa.int32()),
+            pa.field("page_end", pa.int32()),
+            pa.field("heading", pa.string()),
+            pa.field("t_start", pa.float64()),
+            pa.field("t_end", pa.float64()),
+            pa.field("line_start", pa.int32()),
+            pa.field("line_end", pa.int32()),
+            pa.field("media_type", pa.string()),
+            pa.field("vector", pa.list_(pa.float32(), dimension)),
+        ]
+    )
+
+
+DOCUMENTS_SCHEMA = pa.schema(
+    [
+        pa.field("doc_id", pa.string(), nullable=False),
+        pa.field("source", pa.string()),
+        pa.field("path", pa.string()),
+        pa.field("size", pa.int64()),
+        pa.field("fingerprint", pa.string()),
+        pa.field("content_hash", pa.string()),
+        pa.field("media_type", pa.string()),
+        pa.field("title", pa.string()),
+        pa.field("status", pa.string()),  # ok | failed
+        pa.field("error", pa.string()),
+        pa.field("failed_fingerprint", pa.string()),
+        pa.field("warnings", pa.string()),  # JSON list
+        pa.field("segments", pa.string()),  # JSON: the extracted text, so no source is re-read
+        pa.field("extractor_version", pa.string()),
+        pa.field("chunk_count", pa.int32()),
+        pa.field("last_commit", pa.string()),
+        pa.field("updated_at", pa.string()),
+    ]
+)
+
+# Everything but the (large) segments column: what planning a sync needs.
+DOCUMENT_SUMMARY_COLUMNS = [f.name for f in DOCUMENTS_SCHEMA if f.name != "segments"]
+
+TOMBSTONES_SCHEMA = pa.schema(
+    [
+        pa.field("tombstone_id", pa.string(), nullable=False),
+        pa.field("doc_id", pa.string()),
+        pa.field("source", pa.string()),
+        pa.field("path", pa.string()),
+        pa.field("content_hash", pa.string()),
+        pa.field("removed_at", pa.string()),
+        pa.field("reason", pa.string()),
+        pa.field("detail", pa.string()),
+        pa.field("chunk_count", pa.int32()),
+        pa.field("chunks_version", pa.int64()),
+        pa.field("commit_id", pa.string()),
+    ]
+)
+
+COMMITS_SCHEMA = pa.schema(
+    [
+        pa.field("commit_id", pa.string(), nullable=False),
+        pa.field("time", pa.string()),  # UTC, ISO 8601
+        pa.field("trigger", pa.string()),
+        pa.field("sources", pa.string()),  # JSON list
+        pa.field("documents_added", pa.int32()),
+        pa.field("documents_modified", pa.int32()),
+        pa.field("documents_removed", pa.int32()),
+        pa.field("documents_moved", pa.int32()),
+        pa.field("documents_unchanged", pa.int32()),
+        pa.field("documents_failed", pa.int32()),
+        pa.field("chunks_embedded", pa.int32()),
+        pa.field("chunks_reused", pa.int32()),
+        pa.field("chunks_deleted", pa.int32()),
+        pa.field("seconds", pa.float64()),
+        pa.field("chunks_version", pa.int64()),
+        pa.field("documents_version", pa.int64()),
+        pa.field("tombstones_version", pa.int64()),
+        pa.field("changes", pa.string()),  # JSON: doc ids by outcome
+    ]
+)
+
+
+def vectors_schema(dimension: int) -> pa.Schema:
+    return pa.schema(
+        [
+            pa.field("text_hash", pa.string(), nullable=False),
+            pa.field("vector", pa.list_(pa.float32(), dimension)),
+        ]
+    )
+
+
+SETTINGS_SCHEMA = pa.schema(
+    [pa.field("key", pa.string(), nullable=False), pa.field("value", pa.string())]
+)
+
+TABLES = ("chunks", "documents", "tombstones", "commits", "vectors", "settings")
+
+
+class Store:
+    """Tables of one index folder. Readers need no lock; one writer at a time (see ``lock``)."""
+
+    def __init__(self, path: str | os.PathLike[str], db: Any, tables: dict[str, Any]) -> None:
+        self.path = str(path)
+        self.db = db
+        self._t = tables
+
+    # --- opening ----------------------------------------------------------------------------
+
+    @classmethod
+    def exists(cls, path: str | os.PathLike[str]) -> bool:
+        return (Path(path) / "settings.lance").is_dir()
+
+    @classmethod
+    def open(cls, path: str | os.PathLike[str]) -> Store:
+        """Open an existing index; IndexMissing when the folder holds none."""
+        if not cls.exists(path):
+            raise IndexMissing(
+                f"no upwell index at {path}: run `upwell sync FOLDER` to build one, "
+                "or point --index (or UPWELL_INDEX) at an existing index"
+            )
+        db = lancedb.connect(str(path))
+        try:
+            tables = {name: db.open_table(name) for name in TABLES}
+        except ValueError as exc:  # lancedb: "Table 'x' was not found"
+            raise StoreError(f"the index at {path} is incomplete ({exc}); run `upwell verify`")
+        return cls(path, db, tables)
+
+    @classmethod
+    def create(cls, path: str | os.PathLike[str], settings: dict[str, Any]) -> Store:
+        """Create the tables and record the settings the index is built with."""
+        Path(path).mkdir(parents=True, exist_ok=True)
+        db = lancedb.connect(str(path))
+        dim = int(settings["dimension"])
+        tables: dict[str, Any] = {}
+        for name, schema, key in (
+            ("chunks", chunks_schema(dim), "chunk_id"),
+            ("documents", DOCUMENTS_SCHEMA, "doc_id"),
+            ("tombstones", TOMBSTONES_SCHEMA, "tombstone_id"),
+            ("commits", COMMITS_SCHEMA, "commit_id"),
+            ("vectors", vectors_schema(dim), "text_hash"),
+        ):
+            table = db.create_table(name, schema=schema, exist_ok=True)
+            # Measured with lancedb 0.40: without a declared key, two concurrent inserts of one
+            # new key both land.
+            table.set_unenforced_primary_key(key)
+            tables[name] = table
+        # Settings last: its presence is what marks the folder as a complete index.
+        settings_table = db.create_table("settings", schema=SETTINGS_SCHEMA, exist_ok=True)
+        settings_table.add(
+            pa.Table.from_pylist(
+                [{"key": k, "value": json.dumps(v)} for k, v in settings.items()],
+                schema=SETTINGS_SCHEMA,
+            )
+        )
+        tables["settings"] = settings_table
+        return cls(path, db, tables)
+
+    def table(self, name: str) -> Any:
+        return self._t[name]
+
+    def settings(self) -> dict[str, Any]:
+        rows = self._t["settings"].to_arrow().to_pylist()
+        return {r["key"]: json.loads(r["value"]) for r in rows}
+
+    def check_settings(self, wanted: dict[str, Any], keys: Sequence[str]) -> None:
+        """Raise ModelMismatch naming both sides when the index was built differently."""
+        have = self.settings()
+        for key in keys:
+            if key in wanted and have.get(key) != wanted[key]:
+                raise ModelMismatch(
+                    f"the index at {self.path} was built with {key} = {have.get(key)!r}, "
+                    f"but this run uses {wanted[key]!r}; open it with the settings it was built "
+                    "with, or build a new index in another --index folder"
+                )
+
+    def versions(self) -> dict[str, int]:
+        return {name: int(self._t[name].version) for name in ("chunks", "documents", "tombstones")}
+
+    def refresh(self) -> None:
+        """See writes made by other processes since this store was opened."""
+        for table in self._t.values():
+            table.checkout_latest()
+
+    # --- reading ----------------------------------------------------------------------------
+
+    def _scan(self, name: str, columns: list[str] | None = None, where: str | None = None) -> pa.Table:
+        # A plain dataset scan: LanceDB's query builder applies a default limit of 10 rows.
+        ds = self._t[name].to_lance()
+        return ds.to_table(columns=columns, filter=where)
+
+    def documents_of_source(self, source: str) -> dict[str, dict[str, Any]]:
+        """Summary rows (no segments) of one source's documents, by doc_id."""
+        rows = self._scan("documents", DOCUMENT_SUMMARY_COLUMNS, f"source = {quote(source)}")
+        return {r["doc_id"]: r for r in rows.to_pylist()}
+
+    def all_documents(self, columns: list[str] | None = None) -> list[dict[str, Any]]:
+        return self._scan("documents", columns or DOCUMENT_SUMMARY_COLUMNS).to_pylist()
+
+    def document_segments(self, doc_id: str) -> tuple[str, str] | None:
+        """(segments JSON, extractor version) of one document, or None."""
+        rows = self._scan(
+            "documents", ["segments", "extractor_version"], f"doc_id = {quote(doc_id)}"
+        ).to_pylist()
+        if not rows:
+            return None
+        return rows[0]["segments"], rows[0]["extractor_version"]
+
+    def segments_of(self, doc_ids: Sequence[str]) -> dict[str, str]:
+        """Stored segments JSON of several documents, by doc_id."""
+        out: dict[str, str] = {}
+        for part in _batched(list(doc_ids)):
+            rows = self._scan("documents", ["doc_id", "segments"], in_filter("doc_id", part))
+            out.update(zip(rows["doc_id"].to_pylist(), rows["segments"].to_pylist()))
+        return out
+
+    def chunk_keys(self, doc_ids: Sequence[str]) -> dict[str, list[tuple[str, int]]]:
+        """(chunk_id, ordinal) pairs of the given documents, by doc_id."""
+        out: dict[str, list[tuple[str, int]]] = {}
+        for part in _batched(list(doc_ids)):
+            rows = self._scan("chunks", ["doc_id", "chunk_id", "ordinal"], in_filter("doc_id", part))
+            for d, c, o in zip(
+                rows["doc_id"].to_pylist(), rows["chunk_id"].to_pylist(), rows["ordinal"].to_pylist()
+            ):
+                out.setdefault(d, []).append((c, o))
+        return out
+
+    def chunk_counts(self) -> dict[str, int]:
+        """Number of chunks per source."""
+        rows = self._scan("chunks", ["source"])
+        counts: dict[str, int] = {}
+        for s in rows["source"].to_pylist():
+            counts[s] = counts.get(s, 0) + 1
+        return counts
+
+    def find_vectors(self, text_hashes: Sequence[str]) -> dict[str, np.ndarray]:
+        """Vectors already computed for these text hashes: the cache first, then the chunks."""
+        found: dict[str, np.ndarray] = {}
+        wanted = list(dict.fromkeys(text_hashes))
+        for name in ("vectors", "chunks"):
+            missing = [h for h in wanted if h not in found]
+            if not missing:
+                break
+            for part in _batched(missing):
+                rows = self._scan(name, ["text_hash", "vector"], in_filter("text_hash", part))
+                if rows.num_rows == 0:
+                    continue
+                hashes = rows["text_hash"].to_pylist()
+                vecs = _vectors_to_numpy(rows["vector"])
+                for h, v in zip(hashes, vecs):
+                    found.setdefault(h, v)
+        return found
+
+    def commits(self) -> list[dict[str, Any]]:
+        rows = self._scan("commits").to_pylist()
+        rows.sort(key=lambda r: r["time"])
+        return rows
+
+    def tombstone_ids(self, ids: Sequence[str]) -> set[str]:
+        have: set[str] = set()
+        for part in _batched(list(ids)):
+            rows = self._scan("tombstones", ["tombstone_id"], in_filter("tombstone_id", part))
+            have.update(rows["tombstone_id"].to_pylist())
+        return have
+
+    def count(self, name: str) -> int:
+        return int(self._t[name].count_rows())
+
+    # --- writing (callers hold the writer lock) -----------------------------------------------
+
+    def add_vectors(self, rows: pa.Table) -> None:
+        """Insert cache rows whose text hash is new; a repeated call inserts nothing."""
+        if rows.num_rows:
+            (
+                self._t["vectors"]
+                .merge_insert("text_hash")
+                .when_not_matched_insert_all()
+                .execute(rows)
+            )
+
+    def add_tombstones(self, rows: list[dict[str, Any]]) -> None:
+        """Insert tombstones whose id is new; ids are derived from what was removed."""
+        if not rows:
+            return
+        fresh = set(r["tombstone_id"] for r in rows) - self.tombstone_ids(
+            [r["tombstone_id"] for r in rows]
+        )
+        rows = [r for r in rows if r["tombstone_id"] in fresh]
+        if rows:
+            self._t["tombstones"].add(pa.Table.from_pylist(rows, schema=TOMBSTONES_SCHEMA))
+
+    def replace_chunks(self, rows: pa.Table, doc_ids: Sequence[str]) -> int | None:
+        """Make ``rows`` the complete set of chunks of ``doc_ids``, as ONE new table version.
+
+        One merge_insert keyed on chunk_id: matching rows are updated, new ones inserted, and rows
+        of these documents that are not in ``rows`` deleted in the same transaction, so a reader
+        sees each document entirely before or entirely after. Returns the new version, or None
+        when there was nothing to write.
+        """
+        if not doc_ids:
+            return None
+        # A by-source delete without a filter would delete every row not in the batch: the
+        # filter always names the batch's documents.
+        delete_filter = in_filter("doc_id", doc_ids)
+        result = (
+            self._t["chunks"]
+            .merge_insert("chunk_id")
+            .when_matched_update_all()
+            .when_not_matched_insert_all()
+            .when_not_matched_by_source_delete(delete_filter)
+            .execute(rows)
+        )
+        return int(result.version)
+
+    def upsert_documents(self, rows: list[dict[str, Any]], removed: Sequence[str]) -> None:
+        """Write document rows and drop removed documents, as one version of the table."""
+        if not rows and not removed:
+            return
+        table = pa.Table.from_pylist(rows, schema=DOCUMENTS_SCHEMA)
+        builder = self._t["documents"].merge_insert("doc_id").when_matched_update_all()
+        builder = builder.when_not_matched_insert_all()
+        if removed:
+            builder = builder.when_not_matched_by_source_delete(in_filter("doc_id", removed))
+        builder.execute(table)
+
+    def add_commit(self, row: dict[str, Any]) -> None:
+        self._t["commits"].add(pa.Table.from_pylist([row], schema=COMMITS_SCHEMA))
+
+    def update_setting(self, key: str, value: Any) -> None:
+        table = pa.Table.from_pylist([{"key": key, "value": json.dumps(value)}], schema=SETTINGS_SCHEMA)
+        (
+            self._t["settings"]
+            .merge_insert("key")
+            .when_matched_update_all()
+            .when_not_matched_insert_all()
+            .execute(table)
+        )
+
+
+def _vectors_to_numpy(column: pa.ChunkedArray | pa.Array) -> np.ndarray:
+    """A fixed-size-list column as a float32 (n, dim) array, without a Python loop."""
+    if isinstance(column, pa.ChunkedArray):
+        column = column.combine_chunks()
+    dim = column.type.list_size
+    return column.flatten().to_numpy(zero_copy_only=False).reshape(-1, dim).astype(np.float32)

@@ -1,0 +1,602 @@
+"""The incremental sync: from a source listing to committed index versions.
+
+For each source: list items with cheap fingerprints, compare with the documents table, read and
+hash only items whose fingerprint changed, extract and chunk only items whose content hash
+changed, embed only chunk texts whose hash has never been embedded, and commit each batch as one
+version of the chunks table (plus the log rows that describe it).
+
+Checks run cheapest first (stat fingerprint -> content hash -> chunk hashes -> embedding), and
+each level skips the rest when nothing changed. Every step is idempotent: a batch interrupted at
+any point is recomputed by the next run, which finds its vectors in the cache, its chunks already
+written and its tombstones already logged, and writes only what is missing.
+"""
+
+from __future__ import annotations
+
+import json
+import secrets
+import time
+from collections.abc import Callable, Iterable, Sequence
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from typing import Any, Protocol
+
+import numpy as np
+import pyarrow as pa
+
+from . import formats
+from .chunking import chunk_segments
+from .errors import ConfirmationRequired, ExtractionError
+from .hashing import sha256_hex
+from .progress import Progress
+from .records import (
+    Chunk,
+    ChunkSettings,
+    Extracted,
+    Fingerprint,
+    Limits,
+    SourceItem,
+    segments_from_json,
+    segments_to_json,
+)
+from .store import Store, chunks_schema, vectors_schema
+
+OUTCOMES = ("added", "modified", "removed", "moved", "unchanged", "failed")
+
+
+class Source(Protocol):
+    """What the engine needs of a connector."""
+
+    name: str
+
+    def list_items(self) -> Iterable[SourceItem]: ...
+
+    def read(self, key: str, max_bytes: int) -> bytes: ...
+
+
+class Embedder(Protocol):
+    model_id: str
+    dimension: int
+    max_input_tokens: int
+    tokens: Any
+
+    def embed(self, texts: Sequence[str]) -> np.ndarray: ...
+
+
+@dataclass(frozen=True)
+class Failure:
+    source: str
+    path: str
+    reason: str
+
+    def as_dict(self) -> dict[str, str]:
+        return {"source": self.source, "path": self.path, "reason": self.reason}
+
+
+@dataclass
+class Counts:
+    """Per-outcome document counts and chunk counts of a batch or a whole sync."""
+
+    documents: dict[str, int] = field(default_factory=lambda: dict.fromkeys(OUTCOMES, 0))
+    chunks: dict[str, int] = field(
+        default_factory=lambda: {"embedded": 0, "reused": 0, "deleted": 0}
+    )
+
+    def add(self, other: Counts) -> None:
+        for k, v in other.documents.items():
+            self.documents[k] += v
+        for k, v in other.chunks.items():
+            self.chunks[k] += v
+
+
+@dataclass(frozen=True)
+class CommitResult:
+    commit_id: str
+    version: int
+    counts: Counts
+
+
+@dataclass
+class SyncReport:
+    """What one sync did, over all its sources and batches."""
+
+    commits: list[CommitResult] = field(default_factory=list)
+    counts: Counts = field(default_factory=Counts)
+    failures: list[Failure] = field(default_factory=list)
+    version: int = 0
+
+    def as_dict(self) -> dict[str, Any]:
+        last = self.commits[-1] if self.commits else None
+        return {
+            "commit": last.commit_id if last else None,
+            "version": self.version,
+            "commits": [c.commit_id for c in self.commits],
+            "documents": dict(self.counts.documents),
+            "chunks": dict(self.counts.chunks),
+            "failures": [f.as_dict() for f in self.failures],
+        }
+
+
+def fingerprint_key(fp: Fingerprint) -> str:
+    return f"{fp.size}:{fp.mtime_ns}:{fp.inode}:{fp.tag}"
+
+
+def new_commit_id() -> str:
+    """Time-ordered and unique: 12 hex digits of milliseconds, then 8 random ones."""
+    return f"{int(time.time() * 1000):012x}{secrets.token_hex(4)}"
+
+
+def utc_now() -> str:
+    return datetime.now(UTC).isoformat(timespec="milliseconds").replace("+00:00", "Z")
+
+
+def chunk_ids(chunks: Sequence[Chunk]) -> list[str]:
+    """Row keys: the document, the text hash, and which repeat of that text in the document."""
+    seen: dict[str, int] = {}
+    ids = []
+    for c in chunks:
+        n = seen.get(c.text_hash, 0)
+        seen[c.text_hash] = n + 1
+        ids.append(sha256_hex(f"{c.doc_id}\x00{c.text_hash}\x00{n}")[:32])
+    return ids
+
+
+def tombstone_id(doc_id: str, content_hash: str, last_commit: str) -> str:
+    # Stable across re-runs of the same removal: the document row it removes does not change
+    # until the batch completes.
+    return sha256_hex(f"{doc_id}\x00{content_hash}\x00{last_commit}")[:32]
+
+
+@dataclass
+class _DocWork:
+    item: SourceItem
+    outcome: str  # added | modified | moved
+    content_hash: str
+    extracted: Extracted
+    segments_json: str
+    chunks: list[Chunk]
+    moved_from: str | None = None
+
+
+class SyncEngine:
+    """Runs syncs against one store with one embedder. Callers hold the writer lock."""
+
+    def __init__(
+        self,
+        store: Store,
+        embedder: Embedder,
+        chunking: ChunkSettings,
+        limits: Limits,
+        *,
+        batch_documents: int = 200,
+        max_removal_fraction: float = 0.5,
+        progress: Progress | None = None,
+    ) -> None:
+        self.store = store
+        self.embedder = embedder
+        self.chunking = chunking
+        self.limits = limits
+        self.batch_documents = batch_documents
+        self.max_removal_fraction = max_removal_fraction
+        self.progress = progress or Progress(enabled=False)
+
+    # --- the whole sync -------------------------------------------------------------------------
+
+    def sync(
+        self,
+        sources: Sequence[Source],
+        *,
+        yes: bool = False,
+        confirm: Callable[[str], bool] | None = None,
+        trigger: str = "sync",
+    ) -> SyncReport:
+        """Bring the index in line with every source; each source independently.
+
+        Listing all sources happens before anything is written, so an unreachable source stops
+        the run before any change is made.
+        """
+        report = SyncReport()
+        listings = [(s, list(s.list_items())) for s in sources]
+        for source, items in listings:
+            self._sync_source(source, items, report, yes=yes, confirm=confirm, trigger=trigger)
+        report.version = int(self.store.table("chunks").version)
+        return report
+
+    def _sync_source(
+        self,
+        source: Source,
+        items: list[SourceItem],
+        report: SyncReport,
+        *,
+        yes: bool,
+        confirm: Callable[[str], bool] | None,
+        trigger: str,
+    ) -> None:
+        known = self.store.documents_of_source(source.name)
+        listed = {item.doc_id for item in items}
+        removed = [d for d in known if d not in listed]
+        searchable = [d for d, r in known.items() if r["content_hash"]]
+        gone = [d for d in removed if known[d]["content_hash"]]
+        if searchable and len(gone) > self.max_removal_fraction * len(searchable) and not yes:
+            message = (
+                f"source {source.name!r}: this sync would remove {len(gone)} of its "
+                f"{len(searchable)} documents from the index (more than "
+                f"{self.max_removal_fraction:.0%}). If the folder is unmounted or moved, stop now."
+            )
+            if confirm is None or not confirm(message + " Remove them?"):
+                raise ConfirmationRequired(
+                    message + " Nothing was changed; re-run with --yes if the removal is intended."
+                )
+
+        to_read: list[SourceItem] = []
+        unchanged = 0
+        for item in items:
+            row = known.get(item.doc_id)
+            fp = fingerprint_key(item.fingerprint)
+            if row is not None and (
+                (row["status"] == "ok" and row["fingerprint"] == fp)
+                or (row["status"] == "failed" and row["failed_fingerprint"] == fp)
+            ):
+                unchanged += 1
+                continue
+            to_read.append(item)
+
+        removed_by_hash = {known[d]["content_hash"]: d for d in gone}
+        pending_removals = dict.fromkeys(removed)  # ordered set
+        batches = [
+            to_read[i : i + self.batch_documents]
+            for i in range(0, len(to_read), self.batch_documents)
+        ] or [[]]
+        for n, batch in enumerate(batches):
+            last = n == len(batches) - 1
+            counts = Counts()
+            counts.documents["unchanged"] = unchanged if n == 0 else 0
+            result = self._run_batch(
+                source,
+                batch,
+                known,
+                removed_by_hash,
+                pending_removals,
+                counts,
+                report,
+                take_all_removals=last,
+                trigger=trigger,
+            )
+            report.counts.add(counts)
+            if result is not None:
+                report.commits.append(result)
+
+    # --- one batch, one commit -------------------------------------------------------------
+
+    def _run_batch(
+        self,
+        source: Source,
+        items: list[SourceItem],
+        known: dict[str, dict[str, Any]],
+        removed_by_hash: dict[str, str],
+        pending_removals: dict[str, None],
+        counts: Counts,
+        report: SyncReport,
+        *,
+        take_all_removals: bool,
+        trigger: str,
+    ) -> CommitResult | None:
+        started = time.monotonic()
+        commit_id = new_commit_id()
+        now = utc_now()
+        work: list[_DocWork] = []
+        doc_rows: list[dict[str, Any]] = []
+        removals: list[str] = []
+        changes: dict[str, list[Any]] = {k: [] for k in OUTCOMES if k != "unchanged"}
+
+        for item in self.progress.iterate(items, f"reading {source.name}"):
+            row = known.get(item.doc_id)
+            fp = fingerprint_key(item.fingerprint)
+            try:
+                data = source.read(item.key, self.limits.max_file_bytes)
+            except ExtractionError as exc:
+                self._record_failure(item, row, fp, str(exc), commit_id, now, doc_rows, counts, report)
+                changes["failed"].append(item.doc_id)
+                continue
+            content_hash = sha256_hex(data)
+            if row is not None and row["content_hash"] == content_hash:
+                # Same bytes under a new fingerprint (touched, copied over, or a failed file put
+                # back as it was): nothing to extract; refresh the row.
+                doc_rows.append(self._touched_row(row, item, fp, commit_id, now))
+                counts.documents["unchanged"] += 1
+                continue
+            moved_from = None
+            if row is None and content_hash in removed_by_hash:
+                candidate = removed_by_hash[content_hash]
+                if candidate in pending_removals:
+                    moved_from = candidate
+                    del pending_removals[candidate]
+                    removals.append(candidate)
+            try:
+                extracted, seg_json = self._extract(item, data, moved_from)
+                chunks = chunk_segments(
+                    item.doc_id,
+                    extracted.segments,
+                    self.embedder.tokens,
+                    self.chunking,
+                    self.embedder.max_input_tokens,
+                )
+            except ExtractionError as exc:
+                self._record_failure(item, row, fp, str(exc), commit_id, now, doc_rows, counts, report)
+                changes["failed"].append(item.doc_id)
+                continue
+            if moved_from is not None:
+                outcome = "moved"
+            elif row is not None and row["content_hash"]:
+                outcome = "modified"
+            else:
+                outcome = "added"
+            work.append(_DocWork(item, outcome, content_hash, extracted, seg_json, chunks, moved_from))
+
+        if take_all_removals:
+            removals.extend(pending_removals)
+            pending_removals.clear()
+
+        if not work and not removals and not doc_rows:
+            return None
+
+        # Vectors: reuse every one ever computed for the same text, embed the rest once.
+        all_chunks = [c for w in work for c in w.chunks]
+        found = self.store.find_vectors([c.text_hash for c in all_chunks])
+        to_embed: dict[str, str] = {}
+        for c in all_chunks:
+            if c.text_hash not in found and c.text_hash not in to_embed:
+                to_embed[c.text_hash] = c.embed_text
+        new_vectors = self._embed(list(to_embed.values()))
+        for h, v in zip(to_embed, new_vectors):
+            found[h] = v
+        counts.chunks["embedded"] += len(to_embed)
+        counts.chunks["reused"] += len(all_chunks) - len(to_embed)
+
+        # Which documents' chunks actually change (a re-run after a crash finds them written).
+        existing = self.store.chunk_keys([w.item.doc_id for w in work] + removals)
+        write_docs: list[str] = []
+        rows: list[dict[str, Any]] = []
+        vectors: list[np.ndarray] = []
+        for w in work:
+            ids = chunk_ids(w.chunks)
+            planned = sorted(zip(ids, range(len(ids))))
+            before = existing.get(w.item.doc_id, [])
+            if sorted(before) != planned:
+                write_docs.append(w.item.doc_id)
+                counts.chunks["deleted"] += len({c for c, _ in before} - set(ids))
+                for cid, c in zip(ids, w.chunks):
+                    rows.append(_chunk_row(cid, w.item, c, w.extracted.media_type))
+                    vectors.append(found[c.text_hash])
+        for doc_id in removals:
+            if existing.get(doc_id):
+                write_docs.append(doc_id)
+                counts.chunks["deleted"] += len(existing[doc_id])
+
+        # Write order: the cache (so no embedding is lost), the tombstones (a removal is logged
+        # before anything forgets the document), the chunks (the one atomic version that
+        # readers see), then the documents and the commit row that describe it.
+        self._write_vectors(to_embed, found)
+        expected_version = int(self.store.table("chunks").version) + (1 if write_docs else 0)
+        tombstones = []
+        for doc_id in removals:
+            row = known[doc_id]
+            counts.documents["removed"] += 0 if _is_move_source(doc_id, work) else 1
+            if not row["content_hash"]:
+                continue  # never searchable: nothing to log
+            moved_to = next((w.item.doc_id for w in work if w.moved_from == doc_id), None)
+            tombstones.append(
+                {
+                    "tombstone_id": tombstone_id(doc_id, row["content_hash"], row["last_commit"] or ""),
+                    "doc_id": doc_id,
+                    "source": row["source"],
+                    "path": row["path"],
+                    "content_hash": row["content_hash"],
+                    "removed_at": now,
+                    "reason": "moved" if moved_to else "gone at source",
+                    "detail": json.dumps({"moved_to": moved_to}) if moved_to else None,
+                    "chunk_count": row["chunk_count"],
+                    "chunks_version": expected_version,
+                    "commit_id": commit_id,
+                }
+            )
+            if moved_to is None:
+                changes["removed"].append(doc_id)
+        self.store.add_tombstones(tombstones)
+
+        version = None
+        if write_docs:
+            table = _chunk_table(rows, vectors, self.embedder.dimension)
+            version = self.store.replace_chunks(table, write_docs)
+
+        for w in work:
+            counts.documents[w.outcome] += 1
+            if w.outcome == "moved":
+                changes["moved"].append([w.moved_from, w.item.doc_id])
+            else:
+                changes[w.outcome].append(w.item.doc_id)
+            doc_rows.append(
+                {
+                    "doc_id": w.item.doc_id,
+                    "source": w.item.source,
+                    "path": w.item.key,
+                    "size": w.item.fingerprint.size,
+                    "fingerprint": fingerprint_key(w.item.fingerprint),
+                    "content_hash": w.content_hash,
+                    "media_type": w.extracted.media_type,
+                    "title": w.extracted.title,
+                    "status": "ok",
+                    "error": None,
+                    "failed_fingerprint": None,
+                    "warnings": json.dumps(list(w.extracted.warnings)),
+                    "segments": w.segments_json,
+                    "extractor_version": formats.EXTRACTOR_VERSION,
+                    "chunk_count": len(w.chunks),
+                    "last_commit": commit_id,
+                    "updated_at": now,
+                }
+            )
+        keep = [r["doc_id"] for r in doc_rows if r["segments"] is None]
+        if keep:
+            stored = self.store.segments_of(keep)
+            for r in doc_rows:
+                if r["segments"] is None:
+                    r["segments"] = stored.get(r["doc_id"], "[]")
+        self.store.upsert_documents(doc_rows, removals)
+
+        versions = self.store.versions()
+        seconds = time.monotonic() - started
+        self.store.add_commit(
+            {
+                "commit_id": commit_id,
+                "time": now,
+                "trigger": trigger,
+                "sources": json.dumps([source.name]),
+                **{f"documents_{k}": v for k, v in counts.documents.items()},
+                **{f"chunks_{k}": v for k, v in counts.chunks.items()},
+                "seconds": seconds,
+                "chunks_version": versions["chunks"],
+                "documents_version": versions["documents"],
+                "tombstones_version": versions["tombstones"],
+                "changes": json.dumps(changes),
+            }
+        )
+        return CommitResult(commit_id, version or versions["chunks"], counts)
+
+    # --- pieces ---------------------------------------------------------------------------------
+
+    def _extract(
+        self, item: SourceItem, data: bytes, moved_from: str | None
+    ) -> tuple[Extracted, str]:
+        if moved_from is not None:
+            # Same bytes as a document already extracted: reuse its stored segments.
+            stored = self.store.document_segments(moved_from)
+            if stored is not None and stored[1] == formats.EXTRACTOR_VERSION:
+                segments = segments_from_json(stored[0])
+                media_type = formats.media_type_for(item.key) or "application/octet-stream"
+                return Extracted(media_type=media_type, segments=segments), stored[0]
+        extracted = formats.extract(item.key, data, self.limits)
+        return extracted, segments_to_json(extracted.segments)
+
+    def _embed(self, texts: list[str]) -> list[np.ndarray]:
+        if not texts:
+            return []
+        out: list[np.ndarray] = []
+        step = 64
+        with self.progress.bar(len(texts), "embedding") as bar:
+            for i in range(0, len(texts), step):
+                part = self.embedder.embed(texts[i : i + step])
+                out.extend(part)
+                bar.update(len(part))
+        return out
+
+    def _write_vectors(self, to_embed: dict[str, str], found: dict[str, np.ndarray]) -> None:
+        if not to_embed:
+            return
+        hashes = list(to_embed)
+        flat = np.stack([found[h] for h in hashes]).astype(np.float32).ravel()
+        vec = pa.FixedSizeListArray.from_arrays(pa.array(flat), self.embedder.dimension)
+        table = pa.Table.from_arrays(
+            [pa.array(hashes, pa.string()), vec], schema=vectors_schema(self.embedder.dimension)
+        )
+        self.store.add_vectors(table)
+
+    def _touched_row(
+        self, row: dict[str, Any], item: SourceItem, fp: str, commit_id: str, now: str
+    ) -> dict[str, Any]:
+        return {
+            **row,
+            "size": item.fingerprint.size,
+            "fingerprint": fp,
+            "status": "ok",
+            "error": None,
+            "failed_fingerprint": None,
+            "segments": None,  # filled in bulk before the write
+            "updated_at": now,
+        }
+
+    def _record_failure(
+        self,
+        item: SourceItem,
+        row: dict[str, Any] | None,
+        fp: str,
+        reason: str,
+        commit_id: str,
+        now: str,
+        doc_rows: list[dict[str, Any]],
+        counts: Counts,
+        report: SyncReport,
+    ) -> None:
+        """Log the reason and keep the last good version (if any) searchable."""
+        counts.documents["failed"] += 1
+        report.failures.append(Failure(item.source, item.key, reason))
+        if row is not None:
+            doc_rows.append(
+                {
+                    **row,
+                    "status": "failed",
+                    "error": reason,
+                    "failed_fingerprint": fp,
+                    "segments": None,  # filled in bulk before the write
+                    "updated_at": now,
+                }
+            )
+            return
+        doc_rows.append(
+            {
+                "doc_id": item.doc_id,
+                "source": item.source,
+                "path": item.key,
+                "size": item.fingerprint.size,
+                "fingerprint": "",
+                "content_hash": "",
+                "media_type": formats.media_type_for(item.key),
+                "title": None,
+                "status": "failed",
+                "error": reason,
+                "failed_fingerprint": fp,
+                "warnings": "[]",
+                "segments": "[]",
+                "extractor_version": formats.EXTRACTOR_VERSION,
+                "chunk_count": 0,
+                "last_commit": commit_id,
+                "updated_at": now,
+            }
+        )
+
+
+def _is_move_source(doc_id: str, work: list[_DocWork]) -> bool:
+    return any(w.moved_from == doc_id for w in work)
+
+
+def _chunk_row(chunk_id: str, item: SourceItem, c: Chunk, media_type: str) -> dict[str, Any]:
+    return {
+        "chunk_id": chunk_id,
+        "doc_id": c.doc_id,
+        "source": item.source,
+        "path": item.key,
+        "ordinal": c.ordinal,
+        "text": c.text,
+        "context": c.context,
+        "text_hash": c.text_hash,
+        "tokens": c.tokens,
+        "page_start": c.page_start,
+        "page_end": c.page_end,
+        "heading": c.heading,
+        "t_start": c.t_start,
+        "t_end": c.t_end,
+        "line_start": c.line_start,
+        "line_end": c.line_end,
+        "media_type": media_type,
+    }
+
+
+def _chunk_table(rows: list[dict[str, Any]], vectors: list[np.ndarray], dim: int) -> pa.Table:
+    schema = chunks_schema(dim)
+    if not rows:
+        return schema.empty_table()
+    flat = np.stack(vectors).astype(np.float32).ravel()
+    columns = {name: [r[name] for r in rows] for name in schema.names if name != "vector"}
+    arrays = [pa.array(columns[f.name], f.type) for f in schema if f.name != "vector"]
+    arrays.append(pa.FixedSizeListArray.from_arrays(pa.array(flat), dim))
+    return pa.Table.from_arrays(arrays, schema=schema)

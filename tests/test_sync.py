@@ -1,0 +1,404 @@
+"""The sync engine end to end: real LanceDB, real files, the real model where vectors matter.
+
+Each test states one invariant of DESIGN.md section 2 and builds its own corpus in tmp_path.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import random
+import shutil
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from connectors.folder import FolderSource
+from pipeline import formats
+from pipeline.embedding import HashEmbedder
+from pipeline.errors import (
+    ConfirmationRequired,
+    IndexLocked,
+    IndexMissing,
+    ModelMismatch,
+    SourceUnreachable,
+)
+from pipeline.index import Index
+from pipeline.locking import writer_lock
+from pipeline.store import Store
+from tests.conftest import long_markdown, paragraph, write
+
+
+def make_index(tmp_path: Path, embedder, **kw) -> Index:
+    """An index in tmp_path that reuses the session's loaded embedder."""
+    model = "hash" if isinstance(embedder, HashEmbedder) else None
+    ix = Index(tmp_path / "index", model=model, **kw)
+    ix._embedder = embedder
+    return ix
+
+
+def chunk_rows(ix: Index) -> list[dict]:
+    table = ix.store().table("chunks").to_lance().to_table(
+        columns=["chunk_id", "doc_id", "text_hash", "ordinal", "vector"]
+    )
+    return sorted(table.to_pylist(), key=lambda r: r["chunk_id"])
+
+
+# --- the first sync and search ---------------------------------------------------------------
+
+
+def test_first_sync_indexes_every_document_and_search_cites_it(tmp_path, small_corpus, real_embedder):
+    ix = make_index(tmp_path, real_embedder)
+    report = ix.sync([small_corpus]).as_dict()
+    assert report["documents"]["added"] == 3
+    assert report["documents"]["failed"] == 0
+    assert report["chunks"]["reused"] == 0
+    assert report["chunks"]["embedded"] >= 3
+
+    hits = ix.search("how do I return a frame damaged in transit", k=3)
+    assert hits[0].path == "policies/returns.md"
+    assert hits[0].heading is not None and "Damaged frames" in hits[0].heading
+
+    hits = ix.search("spoke tension when truing a wheel", k=1)
+    assert hits[0].path == "training/truing.vtt"
+    assert hits[0].start is not None and hits[0].end is not None and hits[0].end > hits[0].start
+
+    hits = ix.search("brake hose routing", k=1)
+    assert hits[0].path == "notices/ECN-0007.txt"
+    assert hits[0].line_start == 1 or hits[0].line_start is not None
+
+
+def test_search_scores_are_the_cosine_similarity_numpy_computes(tmp_path, small_corpus, real_embedder):
+    ix = make_index(tmp_path, real_embedder)
+    ix.sync([small_corpus])
+    query = "refund to the original card"
+    hits = ix.search(query, k=50)
+    # Reference: cosine similarity computed with numpy over the stored vectors.
+    rows = chunk_rows(ix)
+    vectors = np.array([r["vector"] for r in rows], dtype=np.float64)
+    q = real_embedder.embed([query])[0].astype(np.float64)
+    cos = vectors @ q / (np.linalg.norm(vectors, axis=1) * np.linalg.norm(q))
+    expected = sorted(zip(cos, (r["chunk_id"] for r in rows)), reverse=True)
+    assert [h.chunk_id for h in hits] == [cid for _, cid in expected]
+    np.testing.assert_allclose([h.score for h in hits], [c for c, _ in expected], atol=1e-5)
+
+
+# --- cheap checks first: nothing changed, nothing done -------------------------------------
+
+
+def test_unchanged_resync_embeds_nothing_and_makes_no_commit(tmp_path, small_corpus, hash_embedder):
+    ix = make_index(tmp_path, hash_embedder)
+    ix.sync([small_corpus])
+    version = ix.store().table("chunks").version
+    report = ix.sync([small_corpus]).as_dict()
+    assert report["commit"] is None
+    assert report["documents"]["unchanged"] == 3
+    assert report["chunks"] == {"embedded": 0, "reused": 0, "deleted": 0}
+    assert ix.store().table("chunks").version == version
+
+
+def test_touched_file_is_reread_but_nothing_is_embedded(tmp_path, small_corpus, hash_embedder):
+    ix = make_index(tmp_path, hash_embedder)
+    ix.sync([small_corpus])
+    before = chunk_rows(ix)
+    target = small_corpus / "notices" / "ECN-0007.txt"
+    os.utime(target, ns=(target.stat().st_atime_ns, target.stat().st_mtime_ns + 5_000_000_000))
+    report = ix.sync([small_corpus]).as_dict()
+    assert report["documents"]["unchanged"] == 3
+    assert report["chunks"]["embedded"] == 0
+    assert chunk_rows(ix) == before
+    # The new fingerprint is stored: the third sync does not read the file again.
+    assert ix.sync([small_corpus]).as_dict()["commit"] is None
+
+
+# --- identity is content: edits re-embed only what changed -------------------------------
+
+
+def _long_doc_corpus(tmp_path: Path) -> tuple[Path, Path]:
+    root = tmp_path / "guides"
+    doc = write(root / "workshop-guide.md", long_markdown(70))
+    return root, doc
+
+
+def test_long_document_has_30_chunks_or_more(tmp_path, hash_embedder):
+    root, _ = _long_doc_corpus(tmp_path)
+    ix = make_index(tmp_path, hash_embedder)
+    report = ix.sync([root]).as_dict()
+    assert report["chunks"]["embedded"] >= 30
+
+
+def test_editing_one_paragraph_reembeds_at_most_three_chunks(tmp_path, real_embedder):
+    root, doc = _long_doc_corpus(tmp_path)
+    ix = make_index(tmp_path, real_embedder)
+    first = ix.sync([root]).as_dict()
+    paragraphs = doc.read_text().split("\n\n")
+    target = len(paragraphs) // 2
+    assert not paragraphs[target].startswith("#")
+    paragraphs[target] = paragraph(random.Random(99))
+    doc.write_text("\n\n".join(paragraphs))
+    report = ix.sync([root]).as_dict()
+    assert report["documents"]["modified"] == 1
+    assert 1 <= report["chunks"]["embedded"] <= 3
+    total = first["chunks"]["embedded"]
+    assert report["chunks"]["reused"] >= total - 4
+
+
+def test_inserting_a_paragraph_at_the_top_reembeds_at_most_three_chunks(tmp_path, real_embedder):
+    root, doc = _long_doc_corpus(tmp_path)
+    ix = make_index(tmp_path, real_embedder)
+    ix.sync([root])
+    text = doc.read_text()
+    title, rest = text.split("\n\n", 1)
+    doc.write_text(f"{title}\n\n{paragraph(random.Random(5))}\n\n{rest}")
+    report = ix.sync([root]).as_dict()
+    assert report["documents"]["modified"] == 1
+    assert 1 <= report["chunks"]["embedded"] <= 3
+
+
+def test_renaming_a_file_embeds_nothing_and_reports_a_move(tmp_path, small_corpus, real_embedder):
+    ix = make_index(tmp_path, real_embedder)
+    ix.sync([small_corpus])
+    (small_corpus / "policies" / "returns.md").rename(small_corpus / "policies" / "returns-2027.md")
+    report = ix.sync([small_corpus]).as_dict()
+    assert report["documents"]["moved"] == 1
+    assert report["documents"]["removed"] == 0
+    assert report["documents"]["added"] == 0
+    assert report["chunks"]["embedded"] == 0
+    hits = ix.search("return a damaged frame", k=1)
+    assert hits[0].path == "policies/returns-2027.md"
+    tombstones = ix.store().table("tombstones").to_arrow().to_pylist()
+    assert [(t["doc_id"], t["reason"]) for t in tombstones] == [("share:policies/returns.md", "moved")]
+
+
+def test_deleting_a_file_leaves_no_chunk_and_one_tombstone(tmp_path, small_corpus, hash_embedder):
+    ix = make_index(tmp_path, hash_embedder)
+    ix.sync([small_corpus])
+    n_before = ix.store().count("chunks")
+    (small_corpus / "notices" / "ECN-0007.txt").unlink()
+    report = ix.sync([small_corpus]).as_dict()
+    assert report["documents"]["removed"] == 1
+    rows = chunk_rows(ix)
+    assert not [r for r in rows if r["doc_id"] == "share:notices/ECN-0007.txt"]
+    assert report["chunks"]["deleted"] == n_before - len(rows)
+    tombstones = ix.store().table("tombstones").to_arrow().to_pylist()
+    assert len(tombstones) == 1
+    t = tombstones[0]
+    assert t["doc_id"] == "share:notices/ECN-0007.txt"
+    assert t["reason"] == "gone at source"
+    assert t["chunks_version"] == ix.store().table("chunks").version
+    assert t["content_hash"] and t["chunk_count"] >= 1
+
+
+def test_one_batch_is_one_version_of_the_chunks_table(tmp_path, small_corpus, hash_embedder):
+    ix = make_index(tmp_path, hash_embedder)
+    ix.sync([small_corpus])
+    v = ix.store().table("chunks").version
+    (small_corpus / "notices" / "ECN-0007.txt").unlink()
+    write(small_corpus / "policies" / "returns.md", "# Returns policy\n\nNo returns after 90 days.\n")
+    write(small_corpus / "policies" / "warranty.md", "# Warranty\n\nFrames carry a five-year warranty.\n")
+    report = ix.sync([small_corpus]).as_dict()
+    assert report["documents"] | {"unchanged": 0} == {
+        "added": 1, "modified": 1, "removed": 1, "moved": 0, "unchanged": 0, "failed": 0
+    }
+    assert len(report["commits"]) == 1
+    assert ix.store().table("chunks").version == v + 1 == report["version"]
+
+
+# --- nothing is lost silently ----------------------------------------------------------------
+
+
+def test_failed_edit_keeps_last_good_version_searchable(tmp_path, small_corpus, real_embedder):
+    ix = make_index(tmp_path, real_embedder)
+    ix.sync([small_corpus])
+    before = [r for r in chunk_rows(ix) if r["doc_id"] == "share:policies/returns.md"]
+    rng = random.Random(1)  # random bytes: a binary file saved under a text name
+    (small_corpus / "policies" / "returns.md").write_bytes(bytes(rng.getrandbits(8) for _ in range(3000)))
+    report = ix.sync([small_corpus]).as_dict()
+    assert report["documents"]["failed"] == 1
+    assert report["failures"][0]["path"] == "policies/returns.md"
+    assert "binary" in report["failures"][0]["reason"]
+    after = [r for r in chunk_rows(ix) if r["doc_id"] == "share:policies/returns.md"]
+    assert after == before
+    assert ix.search("return a damaged frame", k=1)[0].path == "policies/returns.md"
+    status = ix.status()
+    assert status["failures"][0]["path"] == "policies/returns.md"
+    assert status["failures"][0]["last_good_searchable"] is True
+    # An unchanged bad file is not retried on every sync.
+    assert ix.sync([small_corpus]).as_dict()["commit"] is None
+    # Fixing the file clears the failure.
+    write(small_corpus / "policies" / "returns.md", "# Returns policy\n\nReturns within 60 days.\n")
+    report = ix.sync([small_corpus]).as_dict()
+    assert report["documents"]["modified"] == 1
+    assert ix.status()["failures"] == []
+
+
+def test_new_bad_documents_are_reported_and_the_rest_is_indexed(tmp_path, small_corpus, hash_embedder):
+    (small_corpus / "empty.md").write_bytes(b"")
+    (small_corpus / "broken.pdf").write_bytes(b"%PDF-1.7\n1 0 obj\n<< /Type /Catalog")
+    (small_corpus / "fake.docx").write_bytes(b"this is not a zip file")
+    ix = make_index(tmp_path, hash_embedder)
+    report = ix.sync([small_corpus]).as_dict()
+    assert report["documents"]["added"] == 3
+    assert sorted(f["path"] for f in report["failures"]) == ["broken.pdf", "empty.md", "fake.docx"]
+    assert all(f["reason"] for f in report["failures"])
+    assert len(ix.status()["failures"]) == 3
+    # A bad file that is later removed just leaves: no tombstone for a never-indexed document.
+    (small_corpus / "empty.md").unlink()
+    ix.sync([small_corpus])
+    assert ix.store().count("tombstones") == 0
+    assert len(ix.status()["failures"]) == 2
+
+
+class VanishingFolder(FolderSource):
+    """A real folder source whose file disappears between listing and reading."""
+
+    def list_items(self):
+        items = list(super().list_items())
+        (self.root / "notices" / "ECN-0007.txt").unlink()
+        return items
+
+
+def test_file_vanishing_between_listing_and_reading_is_a_failure(tmp_path, small_corpus, hash_embedder):
+    ix = make_index(tmp_path, hash_embedder)
+    source = VanishingFolder(name="share", root=small_corpus, accept=lambda k: formats.media_type_for(k) is not None)
+    report = ix.sync([source]).as_dict()
+    assert report["documents"]["added"] == 2
+    assert report["failures"] == [
+        {"source": "share", "path": "notices/ECN-0007.txt", "reason": "the file vanished before it could be read"}
+    ]
+    # The next sync sees it gone.
+    ix.sync([small_corpus])
+    assert ix.status()["failures"] == []
+
+
+def test_missing_source_root_is_an_error_not_an_empty_source(tmp_path, small_corpus, hash_embedder):
+    ix = make_index(tmp_path, hash_embedder)
+    ix.sync([small_corpus])
+    chunks = ix.store().count("chunks")
+    shutil.move(small_corpus, tmp_path / "unmounted")
+    with pytest.raises(SourceUnreachable, match="does not exist"):
+        ix.sync([small_corpus])
+    assert ix.store().count("chunks") == chunks
+
+
+def test_removing_more_than_half_of_a_source_asks_first(tmp_path, small_corpus, hash_embedder):
+    ix = make_index(tmp_path, hash_embedder)
+    ix.sync([small_corpus])
+    shutil.rmtree(small_corpus / "policies")
+    shutil.rmtree(small_corpus / "training")
+    with pytest.raises(ConfirmationRequired, match="remove 2 of its 3 documents"):
+        ix.sync([small_corpus])
+    assert ix.store().count("tombstones") == 0
+    asked = []
+    with pytest.raises(ConfirmationRequired):
+        ix.sync([small_corpus], confirm=lambda msg: asked.append(msg) or False)
+    assert len(asked) == 1
+    report = ix.sync([small_corpus], yes=True).as_dict()
+    assert report["documents"]["removed"] == 2
+
+
+def test_sources_are_independent(tmp_path, small_corpus, hash_embedder):
+    other = tmp_path / "handbook"
+    write(other / "welcome.md", "# Welcome\n\nThe workshop opens at seven.\n")
+    ix = make_index(tmp_path, hash_embedder)
+    ix.sync([small_corpus, other])
+    # Syncing one source alone never removes the other's documents.
+    report = ix.sync([other]).as_dict()
+    assert report["documents"]["removed"] == 0
+    sources = {s["name"]: s["documents"] for s in ix.status()["sources"]}
+    assert sources == {"share": 3, "handbook": 1}
+
+
+# --- the index converges after a crash at any write ---------------------------------------
+
+
+@pytest.mark.parametrize(
+    "step", ["add_vectors", "add_tombstones", "replace_chunks", "upsert_documents", "add_commit"]
+)
+def test_crash_at_any_write_then_rerun_equals_a_clean_run(tmp_path, small_corpus, hash_embedder, monkeypatch, step):
+    def edit(root: Path) -> None:
+        (root / "notices" / "ECN-0007.txt").unlink()
+        write(root / "policies" / "returns.md", "# Returns policy\n\nReturns within 45 days.\n")
+        write(root / "policies" / "new.md", "# Loan bikes\n\nLoan bikes are free for a day.\n")
+
+    clean_root = tmp_path / "clean" / "share"
+    shutil.copytree(small_corpus, clean_root)
+    clean = Index(tmp_path / "clean-index", model="hash")
+    clean._embedder = hash_embedder
+    clean.sync([clean_root])
+    edit(clean_root)
+    clean.sync([clean_root])
+
+    ix = make_index(tmp_path, hash_embedder)
+    ix.sync([small_corpus])
+    edit(small_corpus)
+    original = getattr(Store, step)
+
+    def crash(self, *args, **kwargs):
+        raise RuntimeError(f"injected crash in {step}")
+
+    monkeypatch.setattr(Store, step, crash)
+    with pytest.raises(RuntimeError, match="injected crash"):
+        ix.sync([small_corpus])
+    monkeypatch.setattr(Store, step, original)
+    ix2 = make_index(tmp_path, hash_embedder)  # a new process would open the index afresh
+    ix2.sync([small_corpus])
+
+    def snapshot(index: Index) -> dict:
+        s = index.store()
+        return {
+            "chunks": [
+                (r["chunk_id"], r["doc_id"], r["text_hash"], r["ordinal"], tuple(r["vector"]))
+                for r in chunk_rows(index)
+            ],
+            "documents": sorted(
+                (d["doc_id"].split(":", 1)[1], d["content_hash"], d["status"], d["chunk_count"])
+                for d in s.all_documents()
+            ),
+            "tombstones": sorted(
+                (t["path"], t["content_hash"], t["reason"])
+                for t in s.table("tombstones").to_arrow().to_pylist()
+            ),
+            "vectors": sorted(s.table("vectors").to_arrow()["text_hash"].to_pylist()),
+        }
+
+    assert snapshot(ix2) == snapshot(clean)
+    assert ix2.sync([small_corpus]).as_dict()["commit"] is None
+
+
+# --- the index folder ----------------------------------------------------------------------
+
+
+def test_opening_with_another_model_names_both(tmp_path, small_corpus, hash_embedder):
+    ix = Index(tmp_path / "index", model="hash")
+    ix.sync([small_corpus])
+    other = Index(tmp_path / "index", model="default")
+    with pytest.raises(ModelMismatch) as err:
+        other.sync([small_corpus])
+    assert "hash" in str(err.value) and "MiniLM" in str(err.value)
+    # Without a model named, the index's own model is used.
+    again = Index(tmp_path / "index")
+    assert again.sync([small_corpus]).as_dict()["commit"] is None
+
+
+def test_a_second_writer_is_refused(tmp_path, small_corpus, hash_embedder):
+    ix = make_index(tmp_path, hash_embedder)
+    with writer_lock(ix.path):
+        with pytest.raises(IndexLocked, match=f"process {os.getpid()}"):
+            ix.sync([small_corpus])
+
+
+def test_reading_a_missing_index_is_a_clear_error(tmp_path):
+    with pytest.raises(IndexMissing, match="no upwell index"):
+        Index(tmp_path / "nothing").status()
+
+
+def test_settings_are_recorded_in_the_index(tmp_path, small_corpus, hash_embedder):
+    ix = make_index(tmp_path, hash_embedder)
+    ix.sync([small_corpus])
+    settings = ix.store().settings()
+    assert settings["model_id"] == hash_embedder.model_id
+    assert settings["dimension"] == 384
+    assert settings["chunking"]["max_tokens"] > settings["chunking"]["min_tokens"] > 0
+    json.dumps(settings)
