@@ -1,0 +1,125 @@
+"""Text extraction: turn the bytes of one file into segments in reading order, with anchors.
+
+The sync engine calls ``extract(name, data, limits)``. The suffix chooses the extractor and the
+bytes confirm it, so a ``.pdf`` that is really an HTML page fails with a reason that says so.
+Every failure is an ``ExtractionError`` subclass whose message is a sentence for the status view;
+success always carries at least one segment.
+"""
+
+from __future__ import annotations
+
+from pathlib import PurePath
+
+from pipeline.errors import (
+    CorruptDocument,
+    DocumentTooLarge,
+    EmptyDocument,
+    UnsupportedDocument,
+)
+from pipeline.formats.docx import DOCX_TYPE, extract_docx
+from pipeline.formats.pdf import PDF_TYPE, extract_pdf, find_pdf_header
+from pipeline.formats.text import (
+    MARKDOWN_TYPE,
+    PLAIN_TEXT_TYPE,
+    extract_markdown,
+    extract_plain_text,
+    strip_boms_and_blanks,
+)
+from pipeline.formats.transcripts import SRT_TYPE, WEBVTT_TYPE, extract_srt, extract_webvtt
+from pipeline.records import Extracted, Limits
+
+__all__ = ["EXTRACTOR_VERSION", "SUPPORTED_SUFFIXES", "extract", "media_type_for"]
+
+# Bump whenever any extractor's output changes for the same input bytes: the engine compares it
+# with the version stored beside a document's segments and re-extracts when they differ.
+EXTRACTOR_VERSION = "1"
+
+_MEDIA_TYPES: dict[str, str] = {
+    ".pdf": PDF_TYPE,
+    ".docx": DOCX_TYPE,
+    ".txt": PLAIN_TEXT_TYPE,
+    ".text": PLAIN_TEXT_TYPE,
+    ".md": MARKDOWN_TYPE,
+    ".markdown": MARKDOWN_TYPE,
+    ".vtt": WEBVTT_TYPE,
+    ".srt": SRT_TYPE,
+}
+
+SUPPORTED_SUFFIXES: frozenset[str] = frozenset(_MEDIA_TYPES)
+
+# Leading bytes of formats people commonly save under the wrong name, for error messages.
+_SIGNATURES: tuple[tuple[bytes, str], ...] = (
+    (b"%PDF-", "a PDF document"),
+    (b"PK\x03\x04", "a zip archive"),
+    (b"PK\x05\x06", "an empty zip archive"),
+    (b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1", "a legacy Office file (.doc/.xls, OLE2)"),
+    (b"{\\rtf", "an RTF document"),
+    (b"\x89PNG\r\n\x1a\n", "a PNG image"),
+    (b"\xff\xd8\xff", "a JPEG image"),
+    (b"GIF8", "a GIF image"),
+    (b"\x1f\x8b", "gzip-compressed data"),
+    (b"WEBVTT", "a WebVTT transcript"),
+)
+
+
+def media_type_for(name: str) -> str | None:
+    """The media type upwell extracts ``name`` as, judged by its suffix (any case); else None."""
+    return _MEDIA_TYPES.get(PurePath(name).suffix.lower())
+
+
+def describe_content(data: bytes) -> str:
+    """A short phrase for what the bytes look like ("a zip archive", "HTML", "text", ...)."""
+    head = data[:1024].lstrip()
+    for signature, description in _SIGNATURES:
+        if head.startswith(signature):
+            return description
+    lowered = head[:256].lower()
+    if lowered.startswith((b"<!doctype html", b"<html")):
+        return "an HTML page"
+    if lowered.startswith(b"<?xml") or lowered.startswith(b"<"):
+        return "XML or HTML markup"
+    sample = data[:4096]
+    printable = sum(1 for byte in sample if byte >= 0x20 or byte in b"\t\r\n")
+    if sample and printable / len(sample) > 0.95:
+        return "plain text"
+    return "unrecognised binary data"
+
+
+def extract(name: str, data: bytes, limits: Limits = Limits()) -> Extracted:
+    """Extract the text of the file called ``name`` (only its suffix matters) from ``data``.
+
+    Guarantee: returns at least one segment, in reading order, with anchors set for the format;
+    otherwise raises an ``ExtractionError`` subclass whose message is the human reason
+    (``EmptyDocument``, ``CorruptDocument``, ``EncryptedDocument``, ``UnsupportedDocument``,
+    ``DocumentTooLarge``, ``NoTextLayer``).
+    """
+    media_type = media_type_for(name)
+    if media_type is None:
+        suffix = PurePath(name).suffix or "(none)"
+        raise UnsupportedDocument(f"unsupported file type {suffix}")
+    if len(data) > limits.max_file_bytes:
+        raise DocumentTooLarge(
+            f"file is {len(data):,} bytes, over the limit of {limits.max_file_bytes:,} bytes"
+        )
+    if not strip_boms_and_blanks(data):
+        raise EmptyDocument("empty file" if not data else "file holds only whitespace")
+
+    if media_type == PDF_TYPE:
+        if find_pdf_header(data) < 0:
+            raise CorruptDocument(
+                f"not a PDF (no %PDF- header); it looks like {describe_content(data)}"
+            )
+        return extract_pdf(data)
+    if media_type == DOCX_TYPE:
+        if not data.startswith(b"PK"):
+            raise CorruptDocument(
+                f"not a Word .docx (which is a zip archive); it looks like {describe_content(data)}"
+            )
+        return extract_docx(data, limits)
+    if media_type == WEBVTT_TYPE:
+        return extract_webvtt(data)
+    if media_type == SRT_TYPE:
+        return extract_srt(data)
+    if media_type == MARKDOWN_TYPE:
+        return extract_markdown(data)
+    return extract_plain_text(data)
