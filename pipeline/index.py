@@ -36,6 +36,7 @@ from .sync import Source, SyncEngine, SyncReport
 DEFAULT_INDEX = ".upwell"
 DEFAULT_MODEL = "default"
 SEARCH_COLUMNS = [
+    "_distance",
     "chunk_id",
     "doc_id",
     "source",

@@ -1,0 +1,128 @@
+"""The command line: JSON keys scripts rely on, exit codes, and one clear line per error."""
+
+from __future__ import annotations
+
+import json
+import os
+import re
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from pipeline.cli import main
+from tests.conftest import REPO, write
+
+
+def run(capsys, *argv: str) -> tuple[int, str, str]:
+    code = main(list(argv))
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+def test_sync_search_status_json_keys(tmp_path, small_corpus, capsys):
+    ix = str(tmp_path / "ix")
+    code, out, _ = run(capsys, "--index", ix, "--model", "hash", "sync", str(small_corpus), "--json")
+    assert code == 0
+    report = json.loads(out)
+    assert set(report) >= {"commit", "version", "documents", "chunks", "failures"}
+    assert set(report["documents"]) == {"added", "modified", "removed", "moved", "unchanged", "failed"}
+    assert set(report["chunks"]) == {"embedded", "reused", "deleted"}
+    assert isinstance(report["commit"], str) and isinstance(report["version"], int)
+
+    code, out, _ = run(capsys, "--index", ix, "search", "spoke tension", "-k", "2", "--json")
+    assert code == 0
+    results = json.loads(out)["results"]
+    assert len(results) == 2
+    for r in results:
+        assert set(r) >= {"score", "path", "source", "text", "page", "heading", "start", "end"}
+        assert r["source"] == "share"
+        assert -1.0 <= r["score"] <= 1.0
+    vtt = [r for r in results if r["path"].endswith(".vtt")]
+    assert all(r["start"] is not None and r["page"] is None for r in vtt)
+
+    code, out, _ = run(capsys, "--index", ix, "status", "--json")
+    st = json.loads(out)
+    assert st["totals"]["documents"] == 3
+    assert st["totals"]["chunks"] >= 3
+    assert st["sources"][0]["name"] == "share"
+    assert st["last_commit"]["id"] == report["commit"]
+    assert st["model"]["id"] == "hash-384-v1" or st["model"]["id"].startswith("hash")
+    assert st["failures"] == []
+
+
+def test_failed_document_gives_exit_3_and_shows_in_status(tmp_path, small_corpus, capsys):
+    ix = str(tmp_path / "ix")
+    (small_corpus / "broken.pdf").write_bytes(b"%PDF-1.4\n% cut off here")
+    code, _, err = run(capsys, "--index", ix, "--model", "hash", "sync", str(small_corpus))
+    assert code == 3
+    assert "broken.pdf" in err
+    code, out, _ = run(capsys, "--index", ix, "status")
+    assert code == 0
+    assert re.search(r"failed:\s+share/broken\.pdf: .+", out)
+
+
+def test_mass_removal_without_yes_exits_2_and_changes_nothing(tmp_path, small_corpus, capsys):
+    ix = str(tmp_path / "ix")
+    run(capsys, "--index", ix, "--model", "hash", "sync", str(small_corpus))
+    for p in list(small_corpus.rglob("*.md")) + list(small_corpus.rglob("*.vtt")):
+        p.unlink()
+    code, _, err = run(capsys, "--index", ix, "sync", str(small_corpus))
+    assert code == 2
+    assert "--yes" in err and "Nothing was changed" in err
+    code, out, _ = run(capsys, "--index", ix, "sync", str(small_corpus), "--yes", "--json")
+    assert code == 0 and json.loads(out)["documents"]["removed"] == 2
+
+
+def test_errors_are_one_line_without_traceback(tmp_path, capsys):
+    code, _, err = run(capsys, "--index", str(tmp_path / "none"), "status")
+    assert code == 1
+    assert err.count("\n") == 1 and err.startswith("upwell: error: no upwell index")
+    code, _, err = run(capsys, "--index", str(tmp_path / "ix"), "--model", "hash", "sync", str(tmp_path / "missing"))
+    assert code == 1
+    assert "does not exist" in err and "Traceback" not in err
+
+
+def test_usage_error_exit_code_and_help_examples(capsys):
+    with pytest.raises(SystemExit) as exc:
+        main(["sync"])
+    assert exc.value.code == 2
+    with pytest.raises(SystemExit):
+        main(["--help"])
+    out = capsys.readouterr().out
+    assert "examples:" in out and "upwell sync sample_corpus" in out
+    for command in ("sync", "search", "status"):
+        with pytest.raises(SystemExit):
+            main([command, "--help"])
+        assert "example" in capsys.readouterr().out
+
+
+def test_console_script_is_installed():
+    exe = Path(sys.executable).with_name("upwell")
+    out = subprocess.run([str(exe), "--help"], capture_output=True, text=True, check=True).stdout
+    assert out.startswith("usage: upwell")
+
+
+@pytest.mark.slow
+def test_readme_demo_runs_as_written(tmp_path):
+    """`make demo` runs ops/demo.sh: run it the same way and check what it claims."""
+    env = dict(os.environ, BIN=str(Path(sys.executable).parent))
+    proc = subprocess.run(
+        ["bash", "ops/demo.sh"], cwd=REPO, env=env, capture_output=True, text=True, timeout=900
+    )
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    out = proc.stdout
+    syncs = re.findall(
+        r"documents: (\d+) added, (\d+) modified, (\d+) removed, (\d+) moved, (\d+) unchanged, "
+        r"(\d+) failed\nchunks:\s+(\d+) embedded, (\d+) reused",
+        out,
+    )
+    assert len(syncs) == 4
+    first, unchanged, edit, remove_and_move = [tuple(map(int, s)) for s in syncs]
+    assert first[0] == 14 and first[5] == 0 and first[6] >= 100
+    assert unchanged[4] == 14 and unchanged[6] == 0
+    assert edit[1] == 1 and 1 <= edit[6] <= 3
+    assert remove_and_move[2:4] == (1, 1) and remove_and_move[6] == 0
+    assert "workshop-service-manual.pdf, p. 8" in out
+    assert "bleeding-the-hb2-brake.vtt, 00:00:18-00:00:34" in out
