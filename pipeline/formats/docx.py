@@ -11,7 +11,17 @@ Checks before python-docx sees the file (it reads whole parts into memory with n
 * no XML part declares a DOCTYPE (else ``UnsupportedDocument``): OOXML forbids it
   (ECMA-376 Part 2, 8.1.4; from memory) and python-docx silently drops the text after an entity.
 
-Body paragraphs and tables are read in document order with ``Document.iter_inner_content()``.
+Body paragraphs and tables are read in document order by walking ``w:body`` ourselves rather than
+with ``Document.iter_inner_content()``, which yields only direct ``w:p`` / ``w:tbl`` children and so
+drops everything inside a block-level content control (``w:sdt`` / ``w:sdtContent``, ECMA-376
+Part 1, 17.5.2; from memory) or a block-level ``w:customXml``. The walk looks through both, at any
+depth, in the body and in table cells, and wraps what it finds in python-docx's ``Paragraph`` and
+``Table`` so headings, lists and tables are handled exactly as for ordinary content.
+
+Text boxes (``w:txbxContent``, ECMA-376 Part 1, 17.17.1; from memory) anchored in a body paragraph
+follow that paragraph as PARAGRAPH segments (table rows inside them as TABLE_ROW). Word stores a
+modern text box twice, as DrawingML in ``mc:Choice`` and as VML in ``mc:Fallback`` (ECMA-376
+Part 3, markup compatibility); the fallback copy is skipped when a choice holds the text box.
 """
 
 from __future__ import annotations
@@ -20,10 +30,12 @@ import io
 import re
 import zipfile
 from collections.abc import Iterator
+from typing import Any
 
 import docx
 from docx.document import Document as WordDocument
 from docx.oxml.ns import qn
+from docx.oxml.xmlchemy import BaseOxmlElement
 from docx.table import Table, _Cell
 from docx.text.paragraph import Paragraph
 
@@ -55,6 +67,16 @@ _SCAN_CHUNK = 64 * 1024
 _DOCTYPE_MARKERS = (b"<!DOCTYPE", b"<!ENTITY")
 _HEADING_STYLE = re.compile(r"^heading\s*([1-9])$", re.IGNORECASE)
 _TITLE_STYLE = "title"
+
+_PARAGRAPH_TAG = qn("w:p")
+_TABLE_TAG = qn("w:tbl")
+_CONTENT_CONTROL_TAG = qn("w:sdt")
+_CONTENT_CONTROL_CONTENT_TAG = qn("w:sdtContent")
+_CUSTOM_XML_TAG = qn("w:customXml")
+_TEXT_BOX_TAG = qn("w:txbxContent")
+_MARKUP_COMPATIBILITY = "{http://schemas.openxmlformats.org/markup-compatibility/2006}"
+_FALLBACK_TAG = f"{_MARKUP_COMPATIBILITY}Fallback"
+_CHOICE_TAG = f"{_MARKUP_COMPATIBILITY}Choice"
 
 
 def _check_container(archive: zipfile.ZipFile, limits: Limits) -> None:
@@ -164,10 +186,63 @@ def _is_list_item(paragraph: Paragraph) -> bool:
     return False
 
 
+def _iter_blocks(container: BaseOxmlElement, parent: Any) -> Iterator[Paragraph | Table]:
+    """Paragraphs and tables of a block container (body, cell, text box) in document order.
+
+    Guarantee: every ``w:p`` and ``w:tbl`` reachable from ``container`` through block-level
+    content controls (``w:sdt`` > ``w:sdtContent``) and ``w:customXml``, however deeply nested, is
+    yielded once, in document order, wrapped against ``parent`` (the python-docx object that owns
+    the container, so style lookups reach the right part). Tables are yielded whole, not entered.
+    """
+    # An explicit stack rather than recursion: nesting depth is the document's choice.
+    pending: list[Iterator[BaseOxmlElement]] = [container.iterchildren()]
+    while pending:
+        element = next(pending[-1], None)
+        if element is None:
+            pending.pop()
+        elif element.tag == _PARAGRAPH_TAG:
+            yield Paragraph(element, parent)
+        elif element.tag == _TABLE_TAG:
+            yield Table(element, parent)
+        elif element.tag == _CONTENT_CONTROL_TAG:
+            # w:sdtPr and w:sdtEndPr hold settings and placeholder references, not text.
+            content = element.find(_CONTENT_CONTROL_CONTENT_TAG)
+            if content is not None:
+                pending.append(content.iterchildren())
+        elif element.tag == _CUSTOM_XML_TAG:
+            pending.append(element.iterchildren())
+
+
+def _is_superseded_fallback(text_box: BaseOxmlElement, paragraph: BaseOxmlElement) -> bool:
+    """Whether ``text_box`` is the VML fallback copy of a text box a sibling choice also holds."""
+    element = text_box.getparent()
+    while element is not None and element is not paragraph:
+        if element.tag == _FALLBACK_TAG:
+            alternatives = element.getparent()
+            return alternatives is not None and any(
+                choice.find(f".//{_TEXT_BOX_TAG}") is not None
+                for choice in alternatives.iterchildren(_CHOICE_TAG)
+            )
+        element = element.getparent()
+    return False
+
+
+def _iter_text_boxes(paragraph: Paragraph) -> Iterator[BaseOxmlElement]:
+    """The ``w:txbxContent`` elements anchored in ``paragraph``, in document order, each once.
+
+    Nested text boxes are yielded too (after the one holding them): ``Paragraph.text`` never
+    includes a drawing's text, so each text box's own paragraphs are read exactly once.
+    """
+    element = paragraph._p
+    for text_box in element.iter(_TEXT_BOX_TAG):
+        if not _is_superseded_fallback(text_box, element):
+            yield text_box
+
+
 def _cell_text(cell: _Cell) -> str:
-    """Text of a cell, including any table nested inside it."""
+    """Text of a cell, including content controls and any table nested inside it."""
     parts: list[str] = []
-    for block in cell.iter_inner_content():
+    for block in _iter_blocks(cell._tc, cell):
         if isinstance(block, Paragraph):
             parts.append(block.text)
         else:
@@ -186,7 +261,11 @@ def _row_text(cells: list[_Cell]) -> str:
 
 
 def extract_docx(data: bytes, limits: Limits) -> Extracted:
-    """Headings, paragraphs, list items and table rows of the body, in document order."""
+    """Headings, paragraphs, list items and table rows of the body, in document order.
+
+    Content inside block-level content controls counts as body content; text boxes follow the
+    paragraph that anchors them, as paragraphs under the same heading path.
+    """
     document = _open_checked(data, limits)
     segments: list[Segment] = []
     heading_stack: list[tuple[int, str]] = []
@@ -195,28 +274,42 @@ def extract_docx(data: bytes, limits: Limits) -> Extracted:
     def current_path() -> str | None:
         return " > ".join(text for _, text in heading_stack) or None
 
+    def add_table(table: Table) -> None:
+        for row in table.rows:
+            text = _row_text(row.cells)
+            if text:
+                segments.append(Segment(text, Anchor(heading=current_path()), TABLE_ROW))
+
+    def add_text_boxes(anchor: Paragraph) -> None:
+        # A text box is a side note: its paragraphs never open a heading or a list.
+        for text_box in _iter_text_boxes(anchor):
+            for block in _iter_blocks(text_box, document):
+                if isinstance(block, Table):
+                    add_table(block)
+                    continue
+                text = normalise_text(block.text)
+                if text:
+                    segments.append(Segment(text, Anchor(heading=current_path()), PARAGRAPH))
+
     try:
-        for block in document.iter_inner_content():
+        for block in _iter_blocks(document.element.body, document):
             if isinstance(block, Table):
-                for row in block.rows:
-                    text = _row_text(row.cells)
-                    if text:
-                        segments.append(Segment(text, Anchor(heading=current_path()), TABLE_ROW))
+                add_table(block)
                 continue
             text = normalise_text(block.text)
-            if not text:
-                continue
-            level = _heading_level(block)
+            level = _heading_level(block) if text else None
             if level is not None:
                 while heading_stack and heading_stack[-1][0] >= level:
                     heading_stack.pop()
                 heading_stack.append((level, text))
                 segments.append(Segment(text, Anchor(heading=current_path()), HEADING))
-                continue
-            if _is_title(block) and title is None:
-                title = text
-            kind = LIST_ITEM if _is_list_item(block) else PARAGRAPH
-            segments.append(Segment(text, Anchor(heading=current_path()), kind))
+            elif text:
+                if _is_title(block) and title is None:
+                    title = text
+                kind = LIST_ITEM if _is_list_item(block) else PARAGRAPH
+                segments.append(Segment(text, Anchor(heading=current_path()), kind))
+            # Also after an empty paragraph: one that holds only a drawing still anchors it.
+            add_text_boxes(block)
     except (KeyError, ValueError, AttributeError, IndexError) as error:
         raise CorruptDocument(f"damaged .docx body ({type(error).__name__}: {error})") from error
     if not segments:
