@@ -9,12 +9,12 @@ import zipfile
 import docx
 import docx2txt
 from docx.oxml import OxmlElement, parse_xml
-from docx.oxml.ns import qn
+from docx.oxml.ns import nsdecls, qn
 
 from pipeline.formats import extract
 from pipeline.formats.text import normalise_text
 from pipeline.records import HEADING, LIST_ITEM, PARAGRAPH, TABLE_ROW
-from tests.formats_support import word_similarity
+from tests.formats_support import comparable_words, word_similarity
 
 # WordprocessingML main namespace (ECMA-376 Part 1, 17; from memory).
 W = "{http://schemas.openxmlformats.org/wordprocessingml/2006/main}"
@@ -54,7 +54,7 @@ def _xml_units(data: bytes) -> list[str]:
     Follows ECMA-376 Part 1 (from memory): a block-level content control w:sdt holds its blocks
     in w:sdtContent (17.5.2); a text box's blocks sit in w:txbxContent (17.17.1), read here right
     after the paragraph whose run anchors it; mc:Fallback repeats an mc:Choice (Part 3) and is
-    skipped.
+    skipped. Each paragraph's own text is ``_reader_text``.
     """
     with zipfile.ZipFile(io.BytesIO(data)) as archive:
         root = ElementTree.fromstring(archive.read("word/document.xml"))
@@ -71,28 +71,79 @@ def _block_units(container: ElementTree.Element) -> list[str]:
         elif block.tag == f"{W}tbl":
             for row in block.iter(f"{W}tr"):
                 cells = [
-                    "".join(t.text or "" for t in cell.iter(f"{W}t"))
+                    " ".join(_reader_text(p)[0] for p in cell.iter(f"{W}p"))
                     for cell in row.iter(f"{W}tc")
                 ]
                 units.append(" | ".join(normalise_text(cell) for cell in cells))
     return units
 
 
-def _paragraph_units(paragraph: ElementTree.Element) -> list[str]:
-    own_text: list[str] = []
+# What a reader of the final document sees in a paragraph, per ECMA-376 Part 1 (all from memory).
+# Not shown: tracked deletions w:del and the source of a move w:moveFrom (17.13.5), the settings
+# of a content control w:sdtPr / w:sdtEndPr (17.5.2), the phonetic guide w:rt of w:ruby
+# (17.3.3.25), paragraph properties w:pPr (17.3.1), and the VML copy in mc:Fallback (Part 3).
+# Deleted text w:delText (17.3.3.7) and field codes w:instrText (17.16.23) are not w:t, so they
+# are never collected. Everything else (w:ins, w:moveTo, w:hyperlink, w:fldSimple, w:smartTag,
+# w:customXml, w:sdtContent) is entered and its runs read where they stand.
+_NOT_SHOWN = {f"{W}{name}" for name in ("del", "moveFrom", "sdtPr", "sdtEndPr", "rt", "pPr")} | {
+    f"{MC}Fallback"
+}
+
+
+def _symbol(element: ElementTree.Element) -> str:
+    # w:char is a hex code; U+F0xx addresses a glyph of a symbol font, not a Unicode character.
+    code = int(element.get(f"{W}char"), 16)
+    return "" if 0xF000 <= code <= 0xF0FF else chr(code)
+
+
+# Run content that shows as characters. w:softHyphen (17.3.3.29) shows only at a line end.
+_RUN_CONTENT = {
+    f"{W}t": lambda element: element.text or "",  # 17.3.3.31
+    f"{W}tab": lambda element: "\t",  # 17.3.3.32
+    f"{W}ptab": lambda element: "\t",  # 17.3.3.23
+    f"{W}br": lambda element: "\n",  # 17.3.3.1
+    f"{W}cr": lambda element: "\n",  # 17.3.3.4
+    f"{W}noBreakHyphen": lambda element: "-",  # 17.3.3.18
+    f"{W}sym": _symbol,  # 17.3.3.30
+}
+
+
+def _reader_text(paragraph: ElementTree.Element) -> tuple[str, list[ElementTree.Element]]:
+    """A w:p's visible text, and the w:txbxContent elements it anchors, in document order."""
+    pieces: list[str] = []
     text_boxes: list[ElementTree.Element] = []
+    # One flag per open complex field: False in its code, True in its result (fldChar begin /
+    # separate / end, 17.16.18). Text shows only when all open fields are in their results.
+    open_fields: list[bool] = []
 
     def visit(element: ElementTree.Element) -> None:
         for child in element:
-            if child.tag == f"{W}t":
-                own_text.append(child.text or "")
-            elif child.tag == f"{W}txbxContent":
+            tag = child.tag
+            if tag in _NOT_SHOWN:
+                continue
+            if tag == f"{W}txbxContent":
                 text_boxes.append(child)
-            elif child.tag != f"{MC}Fallback":
+            elif tag == f"{W}fldChar":
+                kind = child.get(f"{W}fldCharType")
+                if kind == "begin":
+                    open_fields.append(False)
+                elif kind == "separate" and open_fields:
+                    open_fields[-1] = True
+                elif kind == "end" and open_fields:
+                    open_fields.pop()
+            elif tag in _RUN_CONTENT:
+                if all(open_fields):
+                    pieces.append(_RUN_CONTENT[tag](child))
+            else:
                 visit(child)
 
     visit(paragraph)
-    units = [normalise_text("".join(own_text))]
+    return "".join(pieces), text_boxes
+
+
+def _paragraph_units(paragraph: ElementTree.Element) -> list[str]:
+    own_text, text_boxes = _reader_text(paragraph)
+    units = [normalise_text(own_text)]
     for text_box in text_boxes:
         units.extend(_block_units(text_box))
     return units
@@ -124,9 +175,7 @@ def _content_control_docx() -> bytes:
     heading = document.add_heading("Torque settings", level=1)
     paragraph = document.add_paragraph("Use the click wrench set to the values below.")
     table = document.add_table(rows=2, cols=2)
-    for row, values in zip(
-        table.rows, [("Bolt", "Torque"), ("Stem cap", "5 Nm")], strict=True
-    ):
+    for row, values in zip(table.rows, [("Bolt", "Torque"), ("Stem cap", "5 Nm")], strict=True):
         for cell, value in zip(row.cells, values, strict=True):
             cell.text = value
     document.add_paragraph("Record each value on the inspection card.")
@@ -357,3 +406,254 @@ def test_legacy_text_box_matches_docx2txt(tmp_path):
     assert texts == _xml_units(data)
     # Reference: docx2txt reads the VML text box's w:t runs where they sit in the paragraph.
     assert word_similarity(" ".join(texts), docx2txt.process(str(path))) >= 0.95
+
+
+# ---------------------------------------------------------------- text inside the paragraph
+
+_REVISION = 'w:author="Marrowby QA" w:date="2024-03-04T09:00:00Z"'
+
+
+def _run(text: str) -> str:
+    return f'<w:r><w:t xml:space="preserve">{text}</w:t></w:r>'
+
+
+def _field_char(kind: str) -> str:
+    return f'<w:r><w:fldChar w:fldCharType="{kind}"/></w:r>'
+
+
+def _complex_field(code: str, result: str) -> str:
+    """fldChar begin / instrText / separate / result / end (ECMA-376 Part 1, 17.16.18)."""
+    return (
+        _field_char("begin")
+        + f'<w:r><w:instrText xml:space="preserve">{code}</w:instrText></w:r>'
+        + _field_char("separate")
+        + result
+        + _field_char("end")
+    )
+
+
+def _append_inline(paragraph, markup: str) -> None:
+    """Append WordprocessingML paragraph content, given as markup, to a python-docx paragraph."""
+    holder = parse_xml(f"<w:holder {nsdecls('w')}>{markup}</w:holder>")
+    for child in list(holder):
+        paragraph._p.append(child)  # lxml moves the element
+
+
+def _save(document) -> bytes:
+    buffer = io.BytesIO()
+    document.save(buffer)
+    return buffer.getvalue()
+
+
+# Paragraph content built with python-docx, then edited with lxml, for the final-inspection card
+# of an invented Marrowby frame; each with the text a reader of the final document sees.
+# Every construct here is read the same way by docx2txt (see test below).
+_COMPARABLE_PARAGRAPHS = [
+    (  # tracked insertion, ECMA-376 Part 1, 17.13.5 (from memory)
+        "Torque the stem cap to ",
+        f'<w:ins w:id="1" {_REVISION}>{_run("5 Nm")}</w:ins>{_run(" before the test ride.")}',
+        "Torque the stem cap to 5 Nm before the test ride.",
+    ),
+    (  # tracked deletion: w:del > w:r > w:delText, and a replacement beside it
+        "Fit ",
+        f'<w:del w:id="2" {_REVISION}><w:r><w:delText>four</w:delText></w:r></w:del>'
+        f'<w:ins w:id="3" {_REVISION}>{_run("six")}</w:ins>{_run(" bottle cage bolts.")}',
+        "Fit six bottle cage bolts.",
+    ),
+    (  # inline content control, 17.5.2: only w:sdtContent is shown
+        "Frame number: ",
+        '<w:sdt><w:sdtPr><w:alias w:val="Frame number"/><w:tag w:val="frame"/></w:sdtPr>'
+        f"<w:sdtContent>{_run('MCW-2291')}</w:sdtContent></w:sdt>" + _run(", painted slate grey."),
+        "Frame number: MCW-2291, painted slate grey.",
+    ),
+    (  # internal hyperlink, 17.16.22, holding a tracked insertion
+        "See the ",
+        f'<w:hyperlink w:anchor="torque_table">{_run("torque ")}'
+        f'<w:ins w:id="4" {_REVISION}>{_run("table")}</w:ins></w:hyperlink>'
+        + _run(" for every bolt."),
+        "See the torque table for every bolt.",
+    ),
+    (  # simple field, 17.16.19: its runs are the result
+        "This card is page ",
+        f'<w:fldSimple w:instr=" PAGE ">{_run("3")}</w:fldSimple>{_run(" of the build file.")}',
+        "This card is page 3 of the build file.",
+    ),
+    (  # complex field, 17.16.18: the code (w:instrText) is dropped, the result kept
+        "Checked on ",
+        _complex_field(' DATE \\@ "d MMMM yyyy" ', _run("4 March 2024"))
+        + _run(" by the bench lead."),
+        "Checked on 4 March 2024 by the bench lead.",
+    ),
+    (  # smart tag and run-level custom XML, 17.5.1: their runs are shown
+        "Ship to ",
+        '<w:smartTag w:uri="urn:marrowby:places" w:element="place"><w:smartTagPr>'
+        '<w:attr w:name="kind" w:val="town"/></w:smartTagPr>'
+        f"{_run('Upper Marrowby')}</w:smartTag>{_run(' by the ')}"
+        f'<w:customXml w:element="carrier">{_run("Tuesday van")}</w:customXml>{_run(".")}',
+        "Ship to Upper Marrowby by the Tuesday van.",
+    ),
+    (  # destination of a tracked move, 17.13.5
+        "Pack the ",
+        '<w:moveToRangeStart w:id="5" w:name="move1" w:author="Marrowby QA"/>'
+        f'<w:moveTo w:id="6" {_REVISION}>{_run("spare spokes ")}</w:moveTo>'
+        '<w:moveToRangeEnd w:id="5"/>' + _run("with the wheel."),
+        "Pack the spare spokes with the wheel.",
+    ),
+    (  # tab, line break and soft hyphen, 17.3.3
+        "Bolt",
+        "<w:r><w:tab/><w:t>Torque</w:t><w:br/><w:t>Stem cap</w:t><w:cr/><w:t>Re</w:t>"
+        "<w:softHyphen/><w:t>true</w:t></w:r>",
+        "Bolt Torque Stem cap Retrue",
+    ),
+]
+
+
+def _inspection_card_docx() -> bytes:
+    """The comparable paragraphs, plus a heading, a list item and a table row with revisions."""
+    document = docx.Document()
+    heading = document.add_heading("Brake ", level=1)
+    _append_inline(heading, f'<w:ins w:id="20" {_REVISION}>{_run("Service ")}</w:ins>')
+    _append_inline(heading, _run("Checks"))
+    for start, markup, _ in _COMPARABLE_PARAGRAPHS:
+        _append_inline(document.add_paragraph(start), markup)
+    item = document.add_paragraph("Replace ", style="List Bullet")
+    _append_inline(
+        item,
+        f'<w:del w:id="21" {_REVISION}><w:r><w:delText>both </w:delText></w:r></w:del>'
+        f'<w:ins w:id="22" {_REVISION}>{_run("the worn ")}</w:ins>{_run("pads.")}',
+    )
+    table = document.add_table(rows=1, cols=2)
+    name, value = table.rows[0].cells
+    name.text = "Pad depth"
+    _append_inline(name.paragraphs[0], f'<w:ins w:id="23" {_REVISION}>{_run(" (mm)")}</w:ins>')
+    _append_inline(value.paragraphs[0], _complex_field(" = 3 / 2 ", _run("1.5")))
+    return _save(document)
+
+
+_CARD_TEXTS = [
+    "Brake Service Checks",
+    *(expected for _, _, expected in _COMPARABLE_PARAGRAPHS),
+    "Replace the worn pads.",
+    "Pad depth (mm) | 1.5",
+]
+
+
+def test_revisions_fields_and_inline_controls_read_as_the_final_document_shows():
+    data = _inspection_card_docx()
+    texts = [segment.text for segment in extract("card.docx", data).segments]
+    assert texts == _CARD_TEXTS
+    # Reference: zipfile + xml.etree reading per ECMA-376 Part 1 (``_reader_text``; from memory).
+    assert texts == _xml_units(data)
+
+
+def test_revised_heading_list_item_and_cell_keep_their_kind_and_path():
+    segments = extract("card.docx", _inspection_card_docx()).segments
+    by_text = {segment.text: segment for segment in segments}
+    assert by_text["Brake Service Checks"].kind == HEADING
+    assert by_text["Replace the worn pads."].kind == LIST_ITEM
+    assert by_text["Pad depth (mm) | 1.5"].kind == TABLE_ROW
+    assert by_text["Fit six bottle cage bolts."].anchor.heading == "Brake Service Checks"
+
+
+def test_revisions_fields_and_inline_controls_match_docx2txt(tmp_path):
+    data = _inspection_card_docx()
+    path = tmp_path / "card.docx"
+    path.write_bytes(data)
+    ours = " ".join(segment.text for segment in extract(path.name, data).segments)
+    # Reference: docx2txt 0.9, which reads every w:t, w:tab, w:br and w:cr of document.xml in
+    # order, whatever wraps it, and never w:delText or w:instrText; so for insertions, deletions,
+    # content controls, hyperlinks, smart tags, custom XML, moves-to and both kinds of field it
+    # sees what a reader sees. Compared word for word, not by similarity.
+    assert comparable_words(ours) == comparable_words(docx2txt.process(str(path)))
+
+
+def test_text_box_paragraphs_read_their_revisions_too():
+    document = docx.Document()
+    document.add_paragraph("Fit the chain guard.")
+    anchor = document.add_paragraph("Tighten the guard bolts.")
+    note = f'<w:p><w:r><w:t xml:space="preserve">Use </w:t></w:r><w:ins w:id="30" {_REVISION}>'
+    note += f"{_run('blue')}</w:ins>{_run(' thread locker.')}</w:p>"
+    box = _vml_text_box_run(["unused"]).replace(
+        _text_box_content(["unused"]), f"<w:txbxContent>{note}</w:txbxContent>"
+    )
+    anchor._p.append(parse_xml(box.replace("<w:r>", f"<w:r {_TEXT_BOX_NAMESPACES}>", 1)))
+    data = _save(document)
+    texts = [segment.text for segment in extract("guard.docx", data).segments]
+    assert texts == [
+        "Fit the chain guard.",
+        "Tighten the guard bolts.",
+        "Use blue thread locker.",
+    ]
+    # Reference: zipfile + xml.etree reading (ECMA-376 Part 1, 17.17.1 and 17.13.5; from memory).
+    assert texts == _xml_units(data)
+
+
+# Constructs where docx2txt does not read what a reader sees, so only the ECMA-376 reading is
+# the reference: docx2txt keeps the source of a move (Word writes w:moveFrom runs with w:t, from
+# memory), drops w:noBreakHyphen and w:sym, shows results of fields nested in a field code and
+# shows a ruby's phonetic guide (w:rt) beside its base text (seen with docx2txt 0.9).
+_READER_ONLY_PARAGRAPHS = [
+    (  # a tracked move: moveFrom is not shown, moveTo is (17.13.5)
+        "Label the box ",
+        f'<w:moveFrom w:id="40" {_REVISION}>{_run("and tape it shut ")}</w:moveFrom>'
+        + _run("with the frame number")
+        + f'<w:moveTo w:id="41" {_REVISION}>{_run(" and tape it shut")}</w:moveTo>'
+        + _run("."),
+        "Label the box with the frame number and tape it shut.",
+    ),
+    (  # non-breaking hyphen, 17.3.3.18
+        "Fit the Fell",
+        "<w:r><w:noBreakHyphen/><w:t>runner decals.</w:t></w:r>",
+        "Fit the Fell-runner decals.",
+    ),
+    (  # symbols, 17.3.3.30: a Unicode code is shown, a symbol-font glyph (U+F0xx) is not
+        "Set the seat angle to 73",
+        '<w:r><w:sym w:font="Arial" w:char="00B0"/><w:t xml:space="preserve"> and tick</w:t>'
+        '<w:sym w:font="Wingdings" w:char="F0FC"/><w:t xml:space="preserve"> the box.</w:t></w:r>',
+        "Set the seat angle to 73° and tick the box.",
+    ),
+    (  # a field nested in another's code is part of that code; only the outer result shows
+        "Finish: ",
+        _field_char("begin")
+        + '<w:r><w:instrText xml:space="preserve"> IF </w:instrText></w:r>'
+        + _complex_field(" MERGEFIELD Finish ", _run("Gloss"))
+        + '<w:r><w:instrText xml:space="preserve"> = "Gloss" "Lacquer" "Wax" </w:instrText></w:r>'
+        + _field_char("separate")
+        + _run("Lacquer")
+        + _field_char("end")
+        + _run(" coat."),
+        "Finish: Lacquer coat.",
+    ),
+    (  # a field with no result (an index entry) and a deleted field show nothing
+        "Spokes are stainless",
+        _field_char("begin")
+        + '<w:r><w:instrText xml:space="preserve"> XE "Spokes" </w:instrText></w:r>'
+        + _field_char("end")
+        + f'<w:del w:id="42" {_REVISION}>'
+        + _complex_field(" PAGE ", "<w:r><w:delText>9</w:delText></w:r>")
+        + "</w:del>"
+        + _run("."),
+        "Spokes are stainless.",
+    ),
+    (  # ruby (17.3.3.25): the base text is shown, the phonetic guide w:rt is not
+        "Stamp the ",
+        f"<w:r><w:ruby><w:rubyPr/><w:rt>{_run('guide')}</w:rt>"
+        f"<w:rubyBase>{_run('head badge')}</w:rubyBase></w:ruby></w:r>" + _run("."),
+        "Stamp the head badge.",
+    ),
+]
+
+
+def _reader_only_docx() -> bytes:
+    document = docx.Document()
+    for start, markup, _ in _READER_ONLY_PARAGRAPHS:
+        _append_inline(document.add_paragraph(start), markup)
+    return _save(document)
+
+
+def test_moves_hyphens_symbols_and_nested_fields_read_as_the_final_document_shows():
+    data = _reader_only_docx()
+    texts = [segment.text for segment in extract("notes.docx", data).segments]
+    assert texts == [expected for _, _, expected in _READER_ONLY_PARAGRAPHS]
+    # Reference: zipfile + xml.etree reading per ECMA-376 Part 1 (``_reader_text``; from memory).
+    assert texts == _xml_units(data)

@@ -22,6 +22,12 @@ Text boxes (``w:txbxContent``, ECMA-376 Part 1, 17.17.1; from memory) anchored i
 follow that paragraph as PARAGRAPH segments (table rows inside them as TABLE_ROW). Word stores a
 modern text box twice, as DrawingML in ``mc:Choice`` and as VML in ``mc:Fallback`` (ECMA-376
 Part 3, markup compatibility); the fallback copy is skipped when a choice holds the text box.
+
+Paragraph text is read from the paragraph's XML by ``paragraph_text`` rather than with
+python-docx's ``Paragraph.text``, which joins only runs and hyperlinks that are direct children of
+the paragraph and so loses tracked insertions, inline content controls, smart tags, simple fields
+and run-level custom XML. What ``paragraph_text`` returns is what a reader of the final document
+sees: insertions in, deletions and moved-from text out, field results in, field codes out.
 """
 
 from __future__ import annotations
@@ -74,6 +80,44 @@ _CONTENT_CONTROL_TAG = qn("w:sdt")
 _CONTENT_CONTROL_CONTENT_TAG = qn("w:sdtContent")
 _CUSTOM_XML_TAG = qn("w:customXml")
 _TEXT_BOX_TAG = qn("w:txbxContent")
+# Elements of paragraph content, ECMA-376 Part 1 (from memory): run content 17.3.3, revisions
+# 17.13.5, fields and hyperlinks 17.16, smart tags and custom XML 17.5.1, content controls 17.5.2.
+_TEXT_TAG = qn("w:t")
+_TAB_TAG = qn("w:tab")
+_POSITIONAL_TAB_TAG = qn("w:ptab")
+_BREAK_TAGS = frozenset({qn("w:br"), qn("w:cr")})
+_NO_BREAK_HYPHEN_TAG = qn("w:noBreakHyphen")
+_SYMBOL_TAG = qn("w:sym")
+_SYMBOL_CHAR_ATTRIBUTE = qn("w:char")
+_FIELD_CHAR_TAG = qn("w:fldChar")
+_FIELD_CHAR_TYPE_ATTRIBUTE = qn("w:fldCharType")
+# Containers whose content is shown as it stands. w:dir / w:bdo (bidirectional embedding) and
+# w:rubyBase (the base text of a phonetic guide) hold runs the same way.
+_TRANSPARENT_TAGS = frozenset(
+    qn(tag)
+    for tag in (
+        "w:r",
+        "w:ins",
+        "w:moveTo",
+        "w:hyperlink",
+        "w:smartTag",
+        "w:customXml",
+        "w:fldSimple",
+        "w:sdtContent",
+        "w:dir",
+        "w:bdo",
+        "w:rubyBase",
+    )
+)
+# w:sdt holds settings (w:sdtPr, w:sdtEndPr) beside its content; w:ruby holds the guide text
+# (w:rt) beside the base text: only the named child is shown.
+_SHOWN_CHILD_OF = {
+    _CONTENT_CONTROL_TAG: qn("w:sdtContent"),
+    qn("w:ruby"): qn("w:rubyBase"),
+}
+# Symbol fonts (Symbol, Wingdings, ...) address their glyphs as U+F000 + byte (ECMA-376 Part 1,
+# 17.3.3.30 sym; from memory): a private-use code that means nothing without the font, so dropped.
+_SYMBOL_FONT_CODES = range(0xF000, 0xF100)
 _MARKUP_COMPATIBILITY = "{http://schemas.openxmlformats.org/markup-compatibility/2006}"
 _FALLBACK_TAG = f"{_MARKUP_COMPATIBILITY}Fallback"
 _CHOICE_TAG = f"{_MARKUP_COMPATIBILITY}Choice"
@@ -186,6 +230,90 @@ def _is_list_item(paragraph: Paragraph) -> bool:
     return False
 
 
+def _symbol_text(symbol: BaseOxmlElement) -> str:
+    try:
+        code = int(symbol.get(_SYMBOL_CHAR_ATTRIBUTE) or "", 16)
+    except ValueError:
+        return ""
+    if code in _SYMBOL_FONT_CODES or not 0x20 <= code <= 0x10FFFF or 0xD800 <= code <= 0xDFFF:
+        return ""
+    return chr(code)
+
+
+class _FieldState:
+    """Which complex fields are open, to tell their codes from their results.
+
+    A complex field is ``fldChar begin``, its code, ``fldChar separate``, its result, ``fldChar
+    end`` (ECMA-376 Part 1, 17.16.18; from memory), and fields nest. Text is shown only when every
+    open field has reached its result: a field nested in another field's code is part of that code.
+    """
+
+    def __init__(self) -> None:
+        self._in_result: list[bool] = []
+
+    def showing(self) -> bool:
+        return all(self._in_result)
+
+    def mark(self, field_char: BaseOxmlElement) -> None:
+        kind = field_char.get(_FIELD_CHAR_TYPE_ATTRIBUTE)
+        if kind == "begin":
+            self._in_result.append(False)
+        elif kind == "separate" and self._in_result:
+            self._in_result[-1] = True
+        elif kind == "end" and self._in_result:
+            self._in_result.pop()
+        # An end or separate with no begin belongs to a field opened in an earlier paragraph
+        # (a table of contents spans many); its result is shown, so there is nothing to undo.
+
+
+def _run_content_text(element: BaseOxmlElement) -> str | None:
+    """The characters one piece of run content shows, or None if ``element`` is not run content."""
+    tag = element.tag
+    if tag == _TEXT_TAG:
+        return element.text or ""
+    if tag in (_TAB_TAG, _POSITIONAL_TAB_TAG):
+        return "\t"
+    if tag in _BREAK_TAGS:
+        return "\n"  # any break, page and column breaks too, separates words
+    if tag == _NO_BREAK_HYPHEN_TAG:
+        return "-"
+    if tag == _SYMBOL_TAG:
+        return _symbol_text(element)
+    return None
+
+
+def paragraph_text(paragraph: BaseOxmlElement) -> str:
+    """The text a reader sees in the ``w:p`` element ``paragraph``, in document order.
+
+    Guarantee: includes the runs inside tracked insertions and moves-to, hyperlinks, inline
+    content controls, smart tags, custom XML and simple fields, at any depth, and the results of
+    complex fields; excludes tracked deletions and moves-from, field codes, content-control
+    settings and soft hyphens. Tabs come out as a tab character, breaks as a newline,
+    non-breaking hyphens as ``-``. Text boxes and nested paragraphs are not included.
+    """
+    fields = _FieldState()
+    parts: list[str] = []
+    # An explicit stack rather than recursion: nesting depth is the document's choice.
+    pending: list[Iterator[BaseOxmlElement]] = [paragraph.iterchildren()]
+    while pending:
+        element = next(pending[-1], None)
+        if element is None:
+            pending.pop()
+        elif element.tag == _FIELD_CHAR_TAG:
+            fields.mark(element)
+        elif (text := _run_content_text(element)) is not None:
+            if fields.showing():
+                parts.append(text)
+        elif element.tag in _TRANSPARENT_TAGS:
+            pending.append(element.iterchildren())
+        elif element.tag in _SHOWN_CHILD_OF:
+            pending.append(element.iterchildren(_SHOWN_CHILD_OF[element.tag]))
+        # Else not shown: w:pPr and w:rPr, w:del and w:moveFrom, w:delText and w:delInstrText
+        # (deleted text), w:instrText (field codes), w:softHyphen (shown only at a line end),
+        # drawings (text boxes are read as blocks of their own), bookmarks, references to notes.
+    return "".join(parts)
+
+
 def _iter_blocks(container: BaseOxmlElement, parent: Any) -> Iterator[Paragraph | Table]:
     """Paragraphs and tables of a block container (body, cell, text box) in document order.
 
@@ -230,7 +358,7 @@ def _is_superseded_fallback(text_box: BaseOxmlElement, paragraph: BaseOxmlElemen
 def _iter_text_boxes(paragraph: Paragraph) -> Iterator[BaseOxmlElement]:
     """The ``w:txbxContent`` elements anchored in ``paragraph``, in document order, each once.
 
-    Nested text boxes are yielded too (after the one holding them): ``Paragraph.text`` never
+    Nested text boxes are yielded too (after the one holding them): ``paragraph_text`` never
     includes a drawing's text, so each text box's own paragraphs are read exactly once.
     """
     element = paragraph._p
@@ -244,7 +372,7 @@ def _cell_text(cell: _Cell) -> str:
     parts: list[str] = []
     for block in _iter_blocks(cell._tc, cell):
         if isinstance(block, Paragraph):
-            parts.append(block.text)
+            parts.append(paragraph_text(block._p))
         else:
             parts.extend(_row_text(row.cells) for row in block.rows)
     return normalise_text(" ".join(parts))
@@ -287,7 +415,7 @@ def extract_docx(data: bytes, limits: Limits) -> Extracted:
                 if isinstance(block, Table):
                     add_table(block)
                     continue
-                text = normalise_text(block.text)
+                text = normalise_text(paragraph_text(block._p))
                 if text:
                     segments.append(Segment(text, Anchor(heading=current_path()), PARAGRAPH))
 
@@ -296,7 +424,7 @@ def extract_docx(data: bytes, limits: Limits) -> Extracted:
             if isinstance(block, Table):
                 add_table(block)
                 continue
-            text = normalise_text(block.text)
+            text = normalise_text(paragraph_text(block._p))
             level = _heading_level(block) if text else None
             if level is not None:
                 while heading_stack and heading_stack[-1][0] >= level:
