@@ -15,7 +15,12 @@ from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from pipeline.errors import DocumentTooLarge, DocumentUnreadable, SourcePermission, SourceUnreachable
+from pipeline.errors import (
+    DocumentTooLarge,
+    DocumentUnreadable,
+    SourcePermission,
+    SourceUnreachable,
+)
 from pipeline.records import Fingerprint, SourceItem
 
 # Editor and office temp files, lock files and partial downloads (common practice: these are the
@@ -78,7 +83,9 @@ class FolderSource:
                 "nothing was changed"
             ) from None
         except PermissionError:
-            raise SourcePermission(f"source {self.name!r}: permission denied on {self.root}") from None
+            raise SourcePermission(
+                f"source {self.name!r}: permission denied on {self.root}"
+            ) from None
         if not stat.S_ISDIR(st.st_mode):
             raise SourceUnreachable(f"source {self.name!r}: {self.root} is not a folder")
         if not os.access(self.root, os.R_OK | os.X_OK):

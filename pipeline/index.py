@@ -264,7 +264,13 @@ class Index:
         for d in docs:
             s = per_source.setdefault(
                 d["source"],
-                {"name": d["source"], "documents": 0, "failed": 0, "chunks": 0, "last_update": None},
+                {
+                    "name": d["source"],
+                    "documents": 0,
+                    "failed": 0,
+                    "chunks": 0,
+                    "last_update": None,
+                },
             )
             if d["content_hash"]:
                 s["documents"] += 1

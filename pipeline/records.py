@@ -62,7 +62,7 @@ class Extracted:
 
 @dataclass(frozen=True)
 class Fingerprint:
-    """Cheap change detector for a source item: stat data for files, an ETag or blob id elsewhere."""
+    """Cheap change detector of a source item: stat data for files, an ETag or blob id elsewhere."""
 
     size: int
     mtime_ns: int = 0

@@ -178,7 +178,7 @@ class Store:
         try:
             tables = {name: db.open_table(name) for name in TABLES}
         except ValueError as exc:  # lancedb: "Table 'x' was not found"
-            raise StoreError(f"the index at {path} is incomplete ({exc}); run `upwell verify`")
+            raise StoreError(f"the index at {path} is incomplete ({exc})") from None
         return cls(path, db, tables)
 
     @classmethod
@@ -239,7 +239,9 @@ class Store:
 
     # --- reading ----------------------------------------------------------------------------
 
-    def _scan(self, name: str, columns: list[str] | None = None, where: str | None = None) -> pa.Table:
+    def _scan(
+        self, name: str, columns: list[str] | None = None, where: str | None = None
+    ) -> pa.Table:
         # A plain dataset scan: LanceDB's query builder applies a default limit of 10 rows.
         ds = self._t[name].to_lance()
         return ds.to_table(columns=columns, filter=where)
@@ -266,16 +268,21 @@ class Store:
         out: dict[str, str] = {}
         for part in _batched(list(doc_ids)):
             rows = self._scan("documents", ["doc_id", "segments"], in_filter("doc_id", part))
-            out.update(zip(rows["doc_id"].to_pylist(), rows["segments"].to_pylist()))
+            out.update(zip(rows["doc_id"].to_pylist(), rows["segments"].to_pylist(), strict=True))
         return out
 
     def chunk_keys(self, doc_ids: Sequence[str]) -> dict[str, list[tuple[str, int]]]:
         """(chunk_id, ordinal) pairs of the given documents, by doc_id."""
         out: dict[str, list[tuple[str, int]]] = {}
         for part in _batched(list(doc_ids)):
-            rows = self._scan("chunks", ["doc_id", "chunk_id", "ordinal"], in_filter("doc_id", part))
+            rows = self._scan(
+                "chunks", ["doc_id", "chunk_id", "ordinal"], in_filter("doc_id", part)
+            )
             for d, c, o in zip(
-                rows["doc_id"].to_pylist(), rows["chunk_id"].to_pylist(), rows["ordinal"].to_pylist()
+                rows["doc_id"].to_pylist(),
+                rows["chunk_id"].to_pylist(),
+                rows["ordinal"].to_pylist(),
+                strict=False,
             ):
                 out.setdefault(d, []).append((c, o))
         return out
@@ -302,7 +309,7 @@ class Store:
                     continue
                 hashes = rows["text_hash"].to_pylist()
                 vecs = _vectors_to_numpy(rows["vector"])
-                for h, v in zip(hashes, vecs):
+                for h, v in zip(hashes, vecs, strict=True):
                     found.setdefault(h, v)
         return found
 
@@ -382,7 +389,9 @@ class Store:
         self._t["commits"].add(pa.Table.from_pylist([row], schema=COMMITS_SCHEMA))
 
     def update_setting(self, key: str, value: Any) -> None:
-        table = pa.Table.from_pylist([{"key": key, "value": json.dumps(value)}], schema=SETTINGS_SCHEMA)
+        table = pa.Table.from_pylist(
+            [{"key": key, "value": json.dumps(value)}], schema=SETTINGS_SCHEMA
+        )
         (
             self._t["settings"]
             .merge_insert("key")

@@ -295,7 +295,9 @@ class SyncEngine:
             try:
                 data = source.read(item.key, self.limits.max_file_bytes)
             except ExtractionError as exc:
-                self._record_failure(item, row, fp, str(exc), commit_id, now, doc_rows, counts, report)
+                self._record_failure(
+                    item, row, fp, str(exc), commit_id, now, doc_rows, counts, report
+                )
                 changes["failed"].append(item.doc_id)
                 continue
             content_hash = sha256_hex(data)
@@ -322,7 +324,9 @@ class SyncEngine:
                     self.embedder.max_input_tokens,
                 )
             except ExtractionError as exc:
-                self._record_failure(item, row, fp, str(exc), commit_id, now, doc_rows, counts, report)
+                self._record_failure(
+                    item, row, fp, str(exc), commit_id, now, doc_rows, counts, report
+                )
                 changes["failed"].append(item.doc_id)
                 continue
             if moved_from is not None:
@@ -331,7 +335,9 @@ class SyncEngine:
                 outcome = "modified"
             else:
                 outcome = "added"
-            work.append(_DocWork(item, outcome, content_hash, extracted, seg_json, chunks, moved_from))
+            work.append(
+                _DocWork(item, outcome, content_hash, extracted, seg_json, chunks, moved_from)
+            )
 
         if take_all_removals:
             removals.extend(pending_removals)
@@ -348,7 +354,7 @@ class SyncEngine:
             if c.text_hash not in found and c.text_hash not in to_embed:
                 to_embed[c.text_hash] = c.embed_text
         new_vectors = self._embed(list(to_embed.values()))
-        for h, v in zip(to_embed, new_vectors):
+        for h, v in zip(to_embed, new_vectors, strict=True):
             found[h] = v
         counts.chunks["embedded"] += len(to_embed)
         counts.chunks["reused"] += len(all_chunks) - len(to_embed)
@@ -360,12 +366,12 @@ class SyncEngine:
         vectors: list[np.ndarray] = []
         for w in work:
             ids = chunk_ids(w.chunks)
-            planned = sorted(zip(ids, range(len(ids))))
+            planned = sorted(zip(ids, range(len(ids)), strict=True))
             before = existing.get(w.item.doc_id, [])
             if sorted(before) != planned:
                 write_docs.append(w.item.doc_id)
                 counts.chunks["deleted"] += len({c for c, _ in before} - set(ids))
-                for cid, c in zip(ids, w.chunks):
+                for cid, c in zip(ids, w.chunks, strict=True):
                     rows.append(_chunk_row(cid, w.item, c, w.extracted.media_type))
                     vectors.append(found[c.text_hash])
         for doc_id in removals:
@@ -387,7 +393,9 @@ class SyncEngine:
             moved_to = next((w.item.doc_id for w in work if w.moved_from == doc_id), None)
             tombstones.append(
                 {
-                    "tombstone_id": tombstone_id(doc_id, row["content_hash"], row["last_commit"] or ""),
+                    "tombstone_id": tombstone_id(
+                        doc_id, row["content_hash"], row["last_commit"] or ""
+                    ),
                     "doc_id": doc_id,
                     "source": row["source"],
                     "path": row["path"],

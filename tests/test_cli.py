@@ -12,7 +12,7 @@ from pathlib import Path
 import pytest
 
 from pipeline.cli import main
-from tests.conftest import REPO, write
+from tests.conftest import REPO
 
 
 def run(capsys, *argv: str) -> tuple[int, str, str]:
@@ -23,11 +23,20 @@ def run(capsys, *argv: str) -> tuple[int, str, str]:
 
 def test_sync_search_status_json_keys(tmp_path, small_corpus, capsys):
     ix = str(tmp_path / "ix")
-    code, out, _ = run(capsys, "--index", ix, "--model", "hash", "sync", str(small_corpus), "--json")
+    code, out, _ = run(
+        capsys, "--index", ix, "--model", "hash", "sync", str(small_corpus), "--json"
+    )
     assert code == 0
     report = json.loads(out)
     assert set(report) >= {"commit", "version", "documents", "chunks", "failures"}
-    assert set(report["documents"]) == {"added", "modified", "removed", "moved", "unchanged", "failed"}
+    assert set(report["documents"]) == {
+        "added",
+        "modified",
+        "removed",
+        "moved",
+        "unchanged",
+        "failed",
+    }
     assert set(report["chunks"]) == {"embedded", "reused", "deleted"}
     assert isinstance(report["commit"], str) and isinstance(report["version"], int)
 
@@ -79,7 +88,15 @@ def test_errors_are_one_line_without_traceback(tmp_path, capsys):
     code, _, err = run(capsys, "--index", str(tmp_path / "none"), "status")
     assert code == 1
     assert err.count("\n") == 1 and err.startswith("upwell: error: no upwell index")
-    code, _, err = run(capsys, "--index", str(tmp_path / "ix"), "--model", "hash", "sync", str(tmp_path / "missing"))
+    code, _, err = run(
+        capsys,
+        "--index",
+        str(tmp_path / "ix"),
+        "--model",
+        "hash",
+        "sync",
+        str(tmp_path / "missing"),
+    )
     assert code == 1
     assert "does not exist" in err and "Traceback" not in err
 

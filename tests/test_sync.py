@@ -39,8 +39,11 @@ def make_index(tmp_path: Path, embedder, **kw) -> Index:
 
 
 def chunk_rows(ix: Index) -> list[dict]:
-    table = ix.store().table("chunks").to_lance().to_table(
-        columns=["chunk_id", "doc_id", "text_hash", "ordinal", "vector"]
+    table = (
+        ix.store()
+        .table("chunks")
+        .to_lance()
+        .to_table(columns=["chunk_id", "doc_id", "text_hash", "ordinal", "vector"])
     )
     return sorted(table.to_pylist(), key=lambda r: r["chunk_id"])
 
@@ -48,7 +51,9 @@ def chunk_rows(ix: Index) -> list[dict]:
 # --- the first sync and search ---------------------------------------------------------------
 
 
-def test_first_sync_indexes_every_document_and_search_cites_it(tmp_path, small_corpus, real_embedder):
+def test_first_sync_indexes_every_document_and_search_cites_it(
+    tmp_path, small_corpus, real_embedder
+):
     ix = make_index(tmp_path, real_embedder)
     report = ix.sync([small_corpus]).as_dict()
     assert report["documents"]["added"] == 3
@@ -69,7 +74,9 @@ def test_first_sync_indexes_every_document_and_search_cites_it(tmp_path, small_c
     assert hits[0].line_start == 1 or hits[0].line_start is not None
 
 
-def test_search_scores_are_the_cosine_similarity_numpy_computes(tmp_path, small_corpus, real_embedder):
+def test_search_scores_are_the_cosine_similarity_numpy_computes(
+    tmp_path, small_corpus, real_embedder
+):
     ix = make_index(tmp_path, real_embedder)
     ix.sync([small_corpus])
     query = "refund to the original card"
@@ -79,7 +86,7 @@ def test_search_scores_are_the_cosine_similarity_numpy_computes(tmp_path, small_
     vectors = np.array([r["vector"] for r in rows], dtype=np.float64)
     q = real_embedder.embed([query])[0].astype(np.float64)
     cos = vectors @ q / (np.linalg.norm(vectors, axis=1) * np.linalg.norm(q))
-    expected = sorted(zip(cos, (r["chunk_id"] for r in rows)), reverse=True)
+    expected = sorted(zip(cos, (r["chunk_id"] for r in rows), strict=True), reverse=True)
     assert [h.chunk_id for h in hits] == [cid for _, cid in expected]
     np.testing.assert_allclose([h.score for h in hits], [c for c, _ in expected], atol=1e-5)
 
@@ -168,7 +175,9 @@ def test_renaming_a_file_embeds_nothing_and_reports_a_move(tmp_path, small_corpu
     hits = ix.search("return a damaged frame", k=1)
     assert hits[0].path == "policies/returns-2027.md"
     tombstones = ix.store().table("tombstones").to_arrow().to_pylist()
-    assert [(t["doc_id"], t["reason"]) for t in tombstones] == [("share:policies/returns.md", "moved")]
+    assert [(t["doc_id"], t["reason"]) for t in tombstones] == [
+        ("share:policies/returns.md", "moved")
+    ]
 
 
 def test_deleting_a_file_leaves_no_chunk_and_one_tombstone(tmp_path, small_corpus, hash_embedder):
@@ -195,11 +204,21 @@ def test_one_batch_is_one_version_of_the_chunks_table(tmp_path, small_corpus, ha
     ix.sync([small_corpus])
     v = ix.store().table("chunks").version
     (small_corpus / "notices" / "ECN-0007.txt").unlink()
-    write(small_corpus / "policies" / "returns.md", "# Returns policy\n\nNo returns after 90 days.\n")
-    write(small_corpus / "policies" / "warranty.md", "# Warranty\n\nFrames carry a five-year warranty.\n")
+    write(
+        small_corpus / "policies" / "returns.md", "# Returns policy\n\nNo returns after 90 days.\n"
+    )
+    write(
+        small_corpus / "policies" / "warranty.md",
+        "# Warranty\n\nFrames carry a five-year warranty.\n",
+    )
     report = ix.sync([small_corpus]).as_dict()
     assert report["documents"] | {"unchanged": 0} == {
-        "added": 1, "modified": 1, "removed": 1, "moved": 0, "unchanged": 0, "failed": 0
+        "added": 1,
+        "modified": 1,
+        "removed": 1,
+        "moved": 0,
+        "unchanged": 0,
+        "failed": 0,
     }
     assert len(report["commits"]) == 1
     assert ix.store().table("chunks").version == v + 1 == report["version"]
@@ -213,7 +232,9 @@ def test_failed_edit_keeps_last_good_version_searchable(tmp_path, small_corpus, 
     ix.sync([small_corpus])
     before = [r for r in chunk_rows(ix) if r["doc_id"] == "share:policies/returns.md"]
     rng = random.Random(1)  # random bytes: a binary file saved under a text name
-    (small_corpus / "policies" / "returns.md").write_bytes(bytes(rng.getrandbits(8) for _ in range(3000)))
+    (small_corpus / "policies" / "returns.md").write_bytes(
+        bytes(rng.getrandbits(8) for _ in range(3000))
+    )
     report = ix.sync([small_corpus]).as_dict()
     assert report["documents"]["failed"] == 1
     assert report["failures"][0]["path"] == "policies/returns.md"
@@ -233,7 +254,9 @@ def test_failed_edit_keeps_last_good_version_searchable(tmp_path, small_corpus, 
     assert ix.status()["failures"] == []
 
 
-def test_new_bad_documents_are_reported_and_the_rest_is_indexed(tmp_path, small_corpus, hash_embedder):
+def test_new_bad_documents_are_reported_and_the_rest_is_indexed(
+    tmp_path, small_corpus, hash_embedder
+):
     (small_corpus / "empty.md").write_bytes(b"")
     (small_corpus / "broken.pdf").write_bytes(b"%PDF-1.7\n1 0 obj\n<< /Type /Catalog")
     (small_corpus / "fake.docx").write_bytes(b"this is not a zip file")
@@ -259,13 +282,21 @@ class VanishingFolder(FolderSource):
         return items
 
 
-def test_file_vanishing_between_listing_and_reading_is_a_failure(tmp_path, small_corpus, hash_embedder):
+def test_file_vanishing_between_listing_and_reading_is_a_failure(
+    tmp_path, small_corpus, hash_embedder
+):
     ix = make_index(tmp_path, hash_embedder)
-    source = VanishingFolder(name="share", root=small_corpus, accept=lambda k: formats.media_type_for(k) is not None)
+    source = VanishingFolder(
+        name="share", root=small_corpus, accept=lambda k: formats.media_type_for(k) is not None
+    )
     report = ix.sync([source]).as_dict()
     assert report["documents"]["added"] == 2
     assert report["failures"] == [
-        {"source": "share", "path": "notices/ECN-0007.txt", "reason": "the file vanished before it could be read"}
+        {
+            "source": "share",
+            "path": "notices/ECN-0007.txt",
+            "reason": "the file vanished before it could be read",
+        }
     ]
     # The next sync sees it gone.
     ix.sync([small_corpus])
@@ -316,7 +347,9 @@ def test_sources_are_independent(tmp_path, small_corpus, hash_embedder):
 @pytest.mark.parametrize(
     "step", ["add_vectors", "add_tombstones", "replace_chunks", "upsert_documents", "add_commit"]
 )
-def test_crash_at_any_write_then_rerun_equals_a_clean_run(tmp_path, small_corpus, hash_embedder, monkeypatch, step):
+def test_crash_at_any_write_then_rerun_equals_a_clean_run(
+    tmp_path, small_corpus, hash_embedder, monkeypatch, step
+):
     def edit(root: Path) -> None:
         (root / "notices" / "ECN-0007.txt").unlink()
         write(root / "policies" / "returns.md", "# Returns policy\n\nReturns within 45 days.\n")

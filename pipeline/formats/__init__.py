@@ -85,7 +85,7 @@ def describe_content(data: bytes) -> str:
     return "unrecognised binary data"
 
 
-def extract(name: str, data: bytes, limits: Limits = Limits()) -> Extracted:
+def extract(name: str, data: bytes, limits: Limits | None = None) -> Extracted:
     """Extract the text of the file called ``name`` (only its suffix matters) from ``data``.
 
     Guarantee: returns at least one segment, in reading order, with anchors set for the format;
@@ -93,6 +93,7 @@ def extract(name: str, data: bytes, limits: Limits = Limits()) -> Extracted:
     (``EmptyDocument``, ``CorruptDocument``, ``EncryptedDocument``, ``UnsupportedDocument``,
     ``DocumentTooLarge``, ``NoTextLayer``).
     """
+    limits = limits or Limits()
     media_type = media_type_for(name)
     if media_type is None:
         suffix = PurePath(name).suffix or "(none)"
