@@ -73,6 +73,11 @@ class FolderSource:
         root = Path(path).expanduser().resolve()
         return cls(name=root.name or "root", root=root, accept=accept)
 
+    @property
+    def location(self) -> str:
+        """Where the source lives, recorded in the index so a name keeps meaning one folder."""
+        return str(self.root)
+
     def check_root(self) -> None:
         """Raise SourceUnreachable / SourcePermission unless the root is a readable folder."""
         try:

@@ -38,6 +38,28 @@ Run `upwell COMMAND --help` for each command's options.
 """
 
 
+class _HelpFormatter(argparse.RawDescriptionHelpFormatter):
+    """Fills prose paragraphs to the terminal width; keeps example blocks as written."""
+
+    def _fill_text(self, text: str, width: int, indent: str) -> str:
+        paragraphs = text.split("\n\n")
+        out = []
+        for para in paragraphs:
+            lines = para.splitlines()
+            if any(line.startswith(" ") for line in lines[1:]) or para.rstrip().endswith(":"):
+                out.append(textwrap.indent(para, indent))
+            else:
+                out.append(
+                    textwrap.fill(
+                        " ".join(lines),
+                        min(width, 92),
+                        initial_indent=indent,
+                        subsequent_indent=indent,
+                    )
+                )
+        return "\n\n".join(out)
+
+
 def _json_out(data: Any) -> None:
     json.dump(data, sys.stdout, indent=2, ensure_ascii=False, default=str)
     sys.stdout.write("\n")
@@ -157,7 +179,7 @@ def build_parser() -> argparse.ArgumentParser:
         prog="upwell",
         description=DESCRIPTION,
         epilog=EPILOG,
-        formatter_class=argparse.RawDescriptionHelpFormatter,
+        formatter_class=_HelpFormatter,
     )
     parser.add_argument(
         "--index",
@@ -182,17 +204,25 @@ def build_parser() -> argparse.ArgumentParser:
         description="Read each folder, and index what changed since the last sync: new and "
         "edited files are extracted and chunked, only chunks whose text is new are embedded, "
         "removed files leave the index (and the tombstone log records them). Each folder is a "
-        "source named after the folder. Each batch of changes is one commit.",
+        "source named after the folder (NAME=PATH names it); syncing one source never touches "
+        "another. Each batch of changes is one commit.",
         epilog="examples:\n  upwell sync sample_corpus\n  upwell sync /srv/share/handbook "
-        "/srv/share/policies --json\n\nexit codes: 0 done, 3 committed but some documents "
-        "failed (see `upwell status`), 2 a removal needed --yes, 4 another writer is running",
-        formatter_class=argparse.RawDescriptionHelpFormatter,
+        "/srv/share/policies --json\n  upwell sync hr=/mnt/hr/docs\n\n"
+        "exit codes: 0 done, 3 committed but some documents failed (see `upwell status`), "
+        "2 a confirmation was needed (--yes), 4 another writer is running",
+        formatter_class=_HelpFormatter,
     )
-    p.add_argument("paths", nargs="+", metavar="PATH", help="folder to sync (a source each)")
+    p.add_argument(
+        "paths",
+        nargs="+",
+        metavar="PATH",
+        help="folder to sync; each is a source named after the folder, or NAME=PATH to name it",
+    )
     p.add_argument(
         "--yes",
         action="store_true",
-        help="do not ask before removing more than half of a source's documents",
+        help="do not ask before removing more than half of a source's documents, or before "
+        "pointing a known source name at a different folder (a share that moved)",
     )
     p.add_argument("--json", action="store_true", help="print the report as JSON")
     p.set_defaults(func=cmd_sync, writes=True)
@@ -204,7 +234,7 @@ def build_parser() -> argparse.ArgumentParser:
         "cosine similarity, each with its citation: file, page, heading or time range.",
         epilog='examples:\n  upwell search "how do I return a damaged frame"\n  upwell search '
         '"spoke tension" -k 5 --json',
-        formatter_class=argparse.RawDescriptionHelpFormatter,
+        formatter_class=_HelpFormatter,
     )
     p.add_argument("query", metavar="QUERY")
     p.add_argument("-k", type=int, default=5, help="number of results (default 5)")
@@ -220,7 +250,7 @@ def build_parser() -> argparse.ArgumentParser:
         "its reason (its last good version stays searchable), extraction warnings, the model "
         "and the last commit. Needs no lock: safe while a sync runs.",
         epilog="example:\n  upwell status --json",
-        formatter_class=argparse.RawDescriptionHelpFormatter,
+        formatter_class=_HelpFormatter,
     )
     p.add_argument("--json", action="store_true", help="print status as JSON")
     p.set_defaults(func=cmd_status, writes=False)

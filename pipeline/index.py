@@ -12,8 +12,10 @@ Python; ``cli.py`` only parses arguments and prints.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import os
+import re
 from collections.abc import Callable, Sequence
 from dataclasses import asdict, dataclass
 from datetime import UTC, datetime
@@ -26,7 +28,7 @@ from connectors.folder import FolderSource
 
 from . import formats
 from .embedding import make_embedder
-from .errors import UsageError
+from .errors import ConfirmationRequired, UsageError
 from .locking import writer_lock
 from .progress import Progress
 from .records import ChunkSettings, Limits
@@ -34,6 +36,7 @@ from .store import FORMAT_VERSION, Store, quote
 from .sync import Source, SyncEngine, SyncReport
 
 DEFAULT_INDEX = ".upwell"
+_NAMED_PATH = re.compile(r"^([A-Za-z0-9][A-Za-z0-9_.-]*)=(.+)$")
 DEFAULT_MODEL = "default"
 SEARCH_COLUMNS = [
     "_distance",
@@ -194,9 +197,12 @@ class Index:
         resolved = [self._as_source(s) for s in sources]
         names = [s.name for s in resolved]
         if len(set(names)) != len(names):
-            raise UsageError(f"two sources share a name: {names}; folders must have distinct names")
+            raise UsageError(
+                f"two sources share a name: {names}; name them apart with NAME=PATH"
+            )
         with writer_lock(self.path):
             store = self._store_for_writing()
+            locations = self._check_locations(store, resolved, yes=yes, confirm=confirm)
             engine = SyncEngine(
                 store,
                 self.embedder(),
@@ -206,15 +212,59 @@ class Index:
                 max_removal_fraction=self.max_removal_fraction,
                 progress=self.progress,
             )
-            return engine.sync(resolved, yes=yes, confirm=confirm, trigger=trigger)
+            report = engine.sync(resolved, yes=yes, confirm=confirm, trigger=trigger)
+            if locations is not None:
+                store.update_setting("source_locations", locations)
+            return report
 
     @staticmethod
     def _as_source(source: str | os.PathLike[str] | Source) -> Source:
-        if isinstance(source, (str, os.PathLike)):
-            return FolderSource.from_path(
-                source, accept=lambda key: formats.media_type_for(key) is not None
-            )
-        return source
+        """A folder path is a source named after the folder; ``NAME=PATH`` names it."""
+        if not isinstance(source, (str, os.PathLike)):
+            return source
+        text = os.fspath(source)
+        name = None
+        match = _NAMED_PATH.match(text)
+        if match and not os.path.exists(text):
+            name, text = match.group(1), match.group(2)
+        folder = FolderSource.from_path(
+            text, accept=lambda key: formats.media_type_for(key) is not None
+        )
+        return dataclasses.replace(folder, name=name) if name else folder
+
+    @staticmethod
+    def _check_locations(
+        store: Store,
+        sources: Sequence[Source],
+        *,
+        yes: bool,
+        confirm: Callable[[str], bool] | None,
+    ) -> dict[str, str] | None:
+        """Refuse to point a known source name at another location without confirmation.
+
+        Two different folders that happen to share a name would otherwise replace each other's
+        documents in the index.
+        """
+        known: dict[str, str] = store.settings().get("source_locations", {})
+        changed = False
+        for source in sources:
+            location = getattr(source, "location", None)
+            if location is None:
+                continue
+            before = known.get(source.name)
+            if before is not None and before != location and not yes:
+                message = (
+                    f"source {source.name!r} was synced from {before}, not {location}. To index "
+                    f"both, give this one another name: NAME={location}."
+                )
+                if confirm is None or not confirm(message + " Has the share moved here?"):
+                    raise ConfirmationRequired(
+                        message + " If the share moved, re-run with --yes. Nothing was changed."
+                    )
+            if before != location:
+                known[source.name] = location
+                changed = True
+        return known if changed else None
 
     # --- reading --------------------------------------------------------------------------------
 

@@ -435,3 +435,22 @@ def test_settings_are_recorded_in_the_index(tmp_path, small_corpus, hash_embedde
     assert settings["dimension"] == 384
     assert settings["chunking"]["max_tokens"] > settings["chunking"]["min_tokens"] > 0
     json.dumps(settings)
+
+
+def test_a_source_name_keeps_meaning_one_folder(tmp_path, small_corpus, hash_embedder):
+    ix = make_index(tmp_path, hash_embedder)
+    ix.sync([small_corpus])
+    elsewhere = tmp_path / "other" / "share"
+    write(elsewhere / "memo.md", "# Memo\n\nThe stores close early on Friday.\n")
+    with pytest.raises(ConfirmationRequired, match="was synced from"):
+        ix.sync([elsewhere])
+    assert ix.status()["totals"]["documents"] == 3
+    # Named apart, both folders are indexed side by side.
+    ix.sync([f"memos={elsewhere}"])
+    assert {s["name"]: s["documents"] for s in ix.status()["sources"]} == {"share": 3, "memos": 1}
+    # A share that really moved is accepted with yes=True; its files are hashed, not re-embedded.
+    moved = tmp_path / "mnt" / "share"
+    shutil.copytree(small_corpus, moved)
+    report = ix.sync([moved], yes=True).as_dict()
+    assert report["chunks"]["embedded"] == 0
+    assert ix.store().settings()["source_locations"]["share"] == str(moved)
