@@ -16,7 +16,8 @@ import dataclasses
 import json
 import os
 import re
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
+from contextlib import contextmanager
 from dataclasses import asdict, dataclass
 from datetime import UTC, datetime
 from pathlib import Path
@@ -129,6 +130,7 @@ class Index:
         self.max_removal_fraction = max_removal_fraction
         self._store: Store | None = None
         self._embedder: Any = None
+        self._lock_depth = 0
 
     # --- opening --------------------------------------------------------------------------------
 
@@ -181,6 +183,28 @@ class Index:
 
     # --- writing --------------------------------------------------------------------------------
 
+    @contextmanager
+    def writing(self) -> Iterator[Index]:
+        """Hold the index's writer lock for a block of writes (re-entrant within this object).
+
+        A long-running writer (the service) holds it for its whole life, so no other process
+        can write in between; ``sync`` and the other writers take it for their own call when
+        nobody holds it yet. Raises IndexLocked (exit code 4) if another process has it.
+        """
+        if self._lock_depth:
+            self._lock_depth += 1
+            try:
+                yield self
+            finally:
+                self._lock_depth -= 1
+            return
+        with writer_lock(self.path):
+            self._lock_depth = 1
+            try:
+                yield self
+            finally:
+                self._lock_depth = 0
+
     def sync(
         self,
         sources: Sequence[str | os.PathLike[str] | Source],
@@ -197,10 +221,8 @@ class Index:
         resolved = [self._as_source(s) for s in sources]
         names = [s.name for s in resolved]
         if len(set(names)) != len(names):
-            raise UsageError(
-                f"two sources share a name: {names}; name them apart with NAME=PATH"
-            )
-        with writer_lock(self.path):
+            raise UsageError(f"two sources share a name: {names}; name them apart with NAME=PATH")
+        with self.writing():
             store = self._store_for_writing()
             locations = self._check_locations(store, resolved, yes=yes, confirm=confirm)
             engine = SyncEngine(

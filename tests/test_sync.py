@@ -454,3 +454,14 @@ def test_a_source_name_keeps_meaning_one_folder(tmp_path, small_corpus, hash_emb
     report = ix.sync([moved], yes=True).as_dict()
     assert report["chunks"]["embedded"] == 0
     assert ix.store().settings()["source_locations"]["share"] == str(moved)
+
+
+def test_a_long_running_writer_holds_the_lock_across_syncs(tmp_path, small_corpus, hash_embedder):
+    ix = make_index(tmp_path, hash_embedder)
+    other = make_index(tmp_path, hash_embedder)
+    with ix.writing():
+        ix.sync([small_corpus])  # re-entrant for the holder
+        with pytest.raises(IndexLocked):
+            other.sync([small_corpus])
+        ix.sync([small_corpus])
+    assert other.sync([small_corpus]).as_dict()["commit"] is None
