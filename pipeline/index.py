@@ -399,5 +399,5 @@ def _commit_summary(row: dict[str, Any]) -> dict[str, Any]:
             k: row[f"documents_{k}"]
             for k in ("added", "modified", "removed", "moved", "unchanged", "failed")
         },
-        "chunks": {k: row[f"chunks_{k}"] for k in ("embedded", "reused", "deleted")},
+        "chunks": {k: row[f"chunks_{k}"] for k in ("embedded", "reused", "added", "deleted")},
     }

@@ -126,6 +126,7 @@ COMMITS_SCHEMA = pa.schema(
         pa.field("documents_failed", pa.int32()),
         pa.field("chunks_embedded", pa.int32()),
         pa.field("chunks_reused", pa.int32()),
+        pa.field("chunks_added", pa.int32()),
         pa.field("chunks_deleted", pa.int32()),
         pa.field("seconds", pa.float64()),
         pa.field("chunks_version", pa.int64()),

@@ -79,7 +79,7 @@ class Counts:
 
     documents: dict[str, int] = field(default_factory=lambda: dict.fromkeys(OUTCOMES, 0))
     chunks: dict[str, int] = field(
-        default_factory=lambda: {"embedded": 0, "reused": 0, "deleted": 0}
+        default_factory=lambda: {"embedded": 0, "reused": 0, "added": 0, "deleted": 0}
     )
 
     def add(self, other: Counts) -> None:
@@ -171,8 +171,11 @@ class SyncEngine:
         batch_documents: int = 200,
         max_removal_fraction: float = 0.5,
         progress: Progress | None = None,
+        vector_sources: Sequence[Store] = (),
     ) -> None:
         self.store = store
+        # Other indexes built with the same model whose vectors may be reused (rebuild).
+        self.vector_sources = list(vector_sources)
         self.embedder = embedder
         self.chunking = chunking
         self.limits = limits
@@ -345,10 +348,44 @@ class SyncEngine:
 
         if not work and not removals and not doc_rows:
             return None
+        return self._apply(
+            source.name,
+            work,
+            doc_rows,
+            removals,
+            known,
+            counts,
+            changes,
+            commit_id=commit_id,
+            now=now,
+            trigger=trigger,
+            started=started,
+        )
 
+    def _apply(
+        self,
+        source_name: str,
+        work: list[_DocWork],
+        doc_rows: list[dict[str, Any]],
+        removals: list[str],
+        known: dict[str, dict[str, Any]],
+        counts: Counts,
+        changes: dict[str, list[Any]],
+        *,
+        commit_id: str,
+        now: str,
+        trigger: str,
+        started: float,
+    ) -> CommitResult:
+        """Embed what is new and commit one batch: the second half of a sync, and all of a
+        rebuild (which brings its documents already extracted)."""
         # Vectors: reuse every one ever computed for the same text, embed the rest once.
         all_chunks = [c for w in work for c in w.chunks]
         found = self.store.find_vectors([c.text_hash for c in all_chunks])
+        for other in self.vector_sources:
+            missing = [c.text_hash for c in all_chunks if c.text_hash not in found]
+            if missing:
+                found.update(other.find_vectors(missing))
         to_embed: dict[str, str] = {}
         for c in all_chunks:
             if c.text_hash not in found and c.text_hash not in to_embed:
@@ -370,7 +407,9 @@ class SyncEngine:
             before = existing.get(w.item.doc_id, [])
             if sorted(before) != planned:
                 write_docs.append(w.item.doc_id)
-                counts.chunks["deleted"] += len({c for c, _ in before} - set(ids))
+                old_ids = {c for c, _ in before}
+                counts.chunks["deleted"] += len(old_ids - set(ids))
+                counts.chunks["added"] += len(set(ids) - old_ids)
                 for cid, c in zip(ids, w.chunks, strict=True):
                     rows.append(_chunk_row(cid, w.item, c, w.extracted.media_type))
                     vectors.append(found[c.text_hash])
@@ -459,7 +498,7 @@ class SyncEngine:
                 "commit_id": commit_id,
                 "time": now,
                 "trigger": trigger,
-                "sources": json.dumps([source.name]),
+                "sources": json.dumps([source_name]),
                 **{f"documents_{k}": v for k, v in counts.documents.items()},
                 **{f"chunks_{k}": v for k, v in counts.chunks.items()},
                 "seconds": seconds,

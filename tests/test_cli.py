@@ -37,7 +37,7 @@ def test_sync_search_status_json_keys(tmp_path, small_corpus, capsys):
         "unchanged",
         "failed",
     }
-    assert set(report["chunks"]) == {"embedded", "reused", "deleted"}
+    assert set(report["chunks"]) >= {"embedded", "reused", "deleted"}
     assert isinstance(report["commit"], str) and isinstance(report["version"], int)
 
     code, out, _ = run(capsys, "--index", ix, "search", "spoke tension", "-k", "2", "--json")

@@ -101,7 +101,7 @@ def test_unchanged_resync_embeds_nothing_and_makes_no_commit(tmp_path, small_cor
     report = ix.sync([small_corpus]).as_dict()
     assert report["commit"] is None
     assert report["documents"]["unchanged"] == 3
-    assert report["chunks"] == {"embedded": 0, "reused": 0, "deleted": 0}
+    assert report["chunks"] == {"embedded": 0, "reused": 0, "added": 0, "deleted": 0}
     assert ix.store().table("chunks").version == version
 
 
