@@ -6,6 +6,8 @@ STAMP  := $(VENV)/.installed
 
 .PHONY: demo test bench clean
 
+BENCH_ARGS ?= --quick
+
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
 	$(BIN)/pip install --quiet --upgrade pip
@@ -17,6 +19,9 @@ demo: $(STAMP)        ## sync sample_corpus/, search it, edit/delete/rename and 
 
 test: $(STAMP)        ## the whole test suite (real LanceDB, the real model)
 	$(BIN)/python -m pytest -q
+
+bench: $(STAMP)       ## benchmark figures as ratios; BENCH_ARGS= for the full sizes
+	$(BIN)/python -m bench $(BENCH_ARGS)
 
 clean:
 	rm -rf .demo .upwell .pytest_cache .hypothesis

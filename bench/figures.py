@@ -1,0 +1,721 @@
+"""One function per benchmark figure of issue 3; each returns a ``Figure``.
+
+Every figure is a count or a ratio of two things measured side by side in the same run, because
+these machines are shared and noisy; absolute times are reported for information only. Timings
+of repeated measurements take the minimum of the repeats (common practice: the minimum is the
+run least disturbed by other processes).
+
+Figures 2, 4 and 6 share one child process (``build_in_child``): it builds the 2,000-document
+index, so its peak RSS is the build's own, and then runs the incremental sync and the raw
+embedder on the same chunk texts.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import random
+import resource
+import statistics
+import subprocess
+import sys
+import time
+import warnings
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pyarrow as pa
+
+from bench import baselines, corpora
+
+REPO = Path(__file__).resolve().parents[1]
+
+
+@dataclass
+class Sizes:
+    """How big each figure's input is; ``quick`` keeps the whole run within 10 minutes."""
+
+    build_documents: int = 2_000
+    rescan_documents: int = 20_000
+    scan_files: int = 100_000
+    search_rows: int = 100_000
+    queries: int = 200
+    filtered_queries: int = 30
+    commits: int = 1_000
+    long_documents: int = 8
+    edits_per_kind: int = 50
+    raw_embed_sample: int | None = None  # None: every chunk text of the build
+    large_build_documents: int | None = 20_000
+
+    @classmethod
+    def quick(cls) -> Sizes:
+        return cls(
+            rescan_documents=2_000,  # the figure-2 index, unchanged after its incremental sync
+            scan_files=20_000,
+            commits=100,
+            long_documents=4,
+            edits_per_kind=10,
+            raw_embed_sample=1_000,
+            large_build_documents=None,
+        )
+
+
+@dataclass
+class Figure:
+    """A figure's JSON value and the table rows (measure, value, target, verdict) it prints."""
+
+    name: str
+    value: Any
+    rows: list[tuple[str, str, str, str]] = field(default_factory=list)
+    extra: dict[str, Any] = field(default_factory=dict)
+
+
+@dataclass
+class Bench:
+    """One run: its scratch folder, sizes, model, and results shared between figures."""
+
+    workdir: Path
+    sizes: Sizes
+    model: str = "default"
+    log: Callable[[str], None] = print
+    shared: dict[str, Any] = field(default_factory=dict)
+
+
+def _verdict(holds: bool | None) -> str:
+    return "n/a" if holds is None else ("holds" if holds else "MISSES")
+
+
+def _best_of(repeats: int, action: Callable[[], object]) -> float:
+    best = float("inf")
+    for _ in range(repeats):
+        started = time.perf_counter()
+        action()
+        best = min(best, time.perf_counter() - started)
+    return best
+
+
+# --- 1. edit locality --------------------------------------------------------------------------
+
+
+def edit_locality(bench: Bench) -> Figure:
+    """Chunks re-embedded per edit (rewrite, insert, delete, append) in long documents: upwell
+    against fixed windows keyed by position and whole-document hashing. Chunking only: the
+    count is what each approach would send to the model, so no model run is needed."""
+    from pipeline import formats
+    from pipeline.chunking import chunk_segments
+    from pipeline.records import ChunkSettings
+    from pipeline.tokens import TokenCounter
+
+    counter = TokenCounter()
+    settings = ChunkSettings()
+
+    def upwell_hashes(markdown: str) -> list[str]:
+        segments = formats.extract("guide.md", markdown.encode()).segments
+        return [c.text_hash for c in chunk_segments("bench:guide.md", segments, counter, settings)]
+
+    documents = [corpora.long_document(seed) for seed in range(bench.sizes.long_documents)]
+    before_text = [corpora.as_markdown(d) for d in documents]
+    before_upwell = [upwell_hashes(t) for t in before_text]
+    before_windows = [baselines.fixed_windows(t, counter) for t in before_text]
+    counts: dict[str, list[int]] = {"upwell": [], "fixed_window": [], "whole_document": []}
+    by_kind: dict[str, list[int]] = {k: [] for k in corpora.EDIT_KINDS}
+    for seed, kind, rng in corpora.iter_edits(len(documents), bench.sizes.edits_per_kind):
+        after_text = corpora.as_markdown(corpora.edited(documents[seed], kind, rng))
+        known = set(before_upwell[seed])
+        # The engine reuses a vector wherever the same embedded text exists, so what it embeds is
+        # the set of new text hashes.
+        upwell = len(set(upwell_hashes(after_text)) - known)
+        windows = baselines.fixed_windows(after_text, counter)
+        counts["upwell"].append(upwell)
+        counts["fixed_window"].append(
+            baselines.fixed_window_reembedded(before_windows[seed], windows)
+        )
+        counts["whole_document"].append(
+            baselines.whole_document_reembedded(before_text[seed], after_text, len(windows))
+        )
+        by_kind[kind].append(upwell)
+    means = {k: float(statistics.fmean(v)) for k, v in counts.items()}
+    worst = {k: max(v) for k, v in counts.items()}
+    edits = len(counts["upwell"])
+    chunks_per_doc = statistics.fmean(len(h) for h in before_upwell)
+    value: dict[str, Any] = {**means, **{f"{k}_max": worst[k] for k in counts}, "edits": edits}
+    value["upwell_by_kind"] = {k: float(statistics.fmean(v)) for k, v in by_kind.items()}
+    rows = [
+        (
+            f"upwell, mean (max) over {edits} edits",
+            f"{means['upwell']:.2f} ({worst['upwell']})",
+            "max <= 3",
+            _verdict(worst["upwell"] <= 3),
+        ),
+        (
+            "fixed_window, mean (max)",
+            f"{means['fixed_window']:.2f} ({worst['fixed_window']})",
+            "",
+            "",
+        ),
+        (
+            "whole_document, mean (max)",
+            f"{means['whole_document']:.2f} ({worst['whole_document']})",
+            "",
+            "",
+        ),
+        ("upwell chunks per long document", f"{chunks_per_doc:.0f}", "", "info"),
+    ]
+    for kind, v in value["upwell_by_kind"].items():
+        rows.append((f"upwell mean, {kind}", f"{v:.2f}", "", "info"))
+    return Figure("edit_locality", value, rows)
+
+
+# --- 2, 4, 6: one build in a child process -----------------------------------------------------
+
+
+def _child_build(spec_json: str) -> None:
+    """Runs inside the child: full build, then optionally an incremental sync and the raw
+    embedder on the build's chunk texts. Prints one JSON line."""
+    spec = json.loads(spec_json)
+    from pipeline.index import Index
+    from pipeline.records import join_context
+
+    corpus, index_dir = Path(spec["corpus"]), Path(spec["index"])
+    index = Index(index_dir, model=spec["model"])
+    index.embedder()  # model load is not build work; time it apart
+    started = time.perf_counter()
+    full = index.sync([corpus])
+    full_seconds = time.perf_counter() - started
+    out: dict[str, Any] = {
+        "full_seconds": full_seconds,
+        "full_embedded": full.counts.chunks["embedded"],
+        "full_documents": full.counts.documents["added"],
+        "full_failed": full.counts.documents["failed"],
+        "full_commits": len(full.commits),
+        # Linux reports ru_maxrss in KiB: the peak of this process up to the end of the build.
+        "build_peak_rss_mb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024,
+    }
+    if spec.get("modify_fraction"):
+        changed = corpora.modify_corpus(corpus, spec["documents"], spec["modify_fraction"])
+        started = time.perf_counter()
+        incremental = index.sync([corpus])
+        out["incremental_seconds"] = time.perf_counter() - started
+        out["incremental_documents_modified"] = incremental.counts.documents["modified"]
+        out["incremental_embedded"] = incremental.counts.chunks["embedded"]
+        out["documents_changed"] = len(changed)
+    if spec.get("raw_embed", False):
+        rows = (
+            index.store()
+            .table("chunks")
+            .to_lance()
+            .to_table(columns=["text_hash", "context", "text"])
+            .to_pylist()
+        )
+        texts = list({r["text_hash"]: join_context(r["context"], r["text"]) for r in rows}.values())
+        sample = spec.get("raw_embed_sample")
+        if sample and sample < len(texts):
+            texts = random.Random(5).sample(texts, sample)
+        embedder = index.embedder()
+        embedder.embed(texts[:8])  # first-run allocations are not throughput
+        started = time.perf_counter()
+        embedder.embed(texts)
+        out["raw_seconds"] = time.perf_counter() - started
+        out["raw_texts"] = len(texts)
+    print("BENCH-RESULT " + json.dumps(out), flush=True)
+
+
+def build_in_child(corpus: Path, index_dir: Path, model: str, **options: Any) -> dict[str, Any]:
+    """Run ``_child_build`` in a fresh interpreter; adds the child's whole-life peak RSS."""
+    spec = json.dumps({"corpus": str(corpus), "index": str(index_dir), "model": model, **options})
+    code = "import sys; from bench.figures import _child_build; _child_build(sys.argv[1])"
+    proc = subprocess.Popen(
+        [sys.executable, "-c", code, spec],
+        cwd=REPO,
+        stdout=subprocess.PIPE,
+        text=True,
+    )
+    assert proc.stdout is not None
+    output = proc.stdout.read()
+    _, status, usage = os.wait4(proc.pid, 0)
+    proc.returncode = os.waitstatus_to_exitcode(status)
+    if proc.returncode != 0:
+        raise RuntimeError(f"benchmark build child failed with exit code {proc.returncode}")
+    line = next(x for x in output.splitlines() if x.startswith("BENCH-RESULT "))
+    result = json.loads(line.removeprefix("BENCH-RESULT "))
+    result["child_peak_rss_mb"] = usage.ru_maxrss / 1024
+    return result
+
+
+def _main_build(bench: Bench) -> dict[str, Any]:
+    """The 2,000-document build shared by figures 2, 4 and 6 (run once per bench run)."""
+    if "build" not in bench.shared:
+        n = bench.sizes.build_documents
+        corpus = bench.workdir / f"corpus-{n}"
+        started = time.perf_counter()
+        corpora.write_corpus(corpus, n)
+        bench.log(f"  wrote {n} documents in {time.perf_counter() - started:.1f} s")
+        index_dir = bench.workdir / f"index-{n}"
+        result = build_in_child(
+            corpus,
+            index_dir,
+            bench.model,
+            documents=n,
+            modify_fraction=0.01,
+            raw_embed=True,
+            raw_embed_sample=bench.sizes.raw_embed_sample,
+        )
+        result.update(corpus=str(corpus), index=str(index_dir), documents=n)
+        bench.shared["build"] = result
+    return bench.shared["build"]
+
+
+def incremental_ratio(bench: Bench) -> Figure:
+    """Incremental sync with 1% of the documents modified, over a full build of the same
+    corpus, in the same process."""
+    b = _main_build(bench)
+    ratio = b["incremental_seconds"] / b["full_seconds"]
+    rows = [
+        (
+            f"incremental / full, {b['documents_changed']} of {b['documents']} docs",
+            f"{ratio:.4f}",
+            "<= 0.05",
+            _verdict(ratio <= 0.05),
+        ),
+        (
+            "full build (info)",
+            f"{b['full_seconds']:.1f} s, {b['full_embedded']} chunks",
+            "",
+            "info",
+        ),
+        (
+            "incremental sync (info)",
+            f"{b['incremental_seconds']:.2f} s, {b['incremental_embedded']} chunks",
+            "",
+            "info",
+        ),
+    ]
+    extra = {
+        "incremental_ratio_detail": {
+            k: b[k]
+            for k in (
+                "full_seconds",
+                "incremental_seconds",
+                "full_embedded",
+                "incremental_embedded",
+                "documents_changed",
+                "documents",
+            )
+        }
+        | {"model": bench.model}
+    }
+    return Figure("incremental_ratio", ratio, rows, extra)
+
+
+def embed_efficiency(bench: Bench) -> Figure:
+    """Full-build chunks per second over the raw embedder's chunks per second on the same
+    chunk texts (all of them, or a random sample in --quick), same process."""
+    b = _main_build(bench)
+    build_rate = b["full_embedded"] / b["full_seconds"]
+    raw_rate = b["raw_texts"] / b["raw_seconds"]
+    ratio = build_rate / raw_rate
+    rows = [
+        ("build chunks/s / raw chunks/s", f"{ratio:.3f}", ">= 0.8", _verdict(ratio >= 0.8)),
+        ("build (info)", f"{build_rate:.1f} chunks/s", "", "info"),
+        ("raw embedder (info)", f"{raw_rate:.1f} chunks/s over {b['raw_texts']} texts", "", "info"),
+    ]
+    extra = {
+        "embed_efficiency_detail": {
+            "build_chunks_per_s": build_rate,
+            "raw_chunks_per_s": raw_rate,
+            "raw_texts": b["raw_texts"],
+        }
+    }
+    return Figure("embed_efficiency", ratio, rows, extra)
+
+
+def peak_rss_mb(bench: Bench) -> Figure:
+    """Peak RSS of a full build of 2,000 documents in a child process; 20,000 beside it."""
+    b = _main_build(bench)
+    value = float(b["build_peak_rss_mb"])
+    rows = [
+        (
+            f"full build of {b['documents']} docs",
+            f"{value:.0f} MB",
+            "<= 1024 MB",
+            _verdict(value <= 1024),
+        ),
+        (
+            "child whole life, incl. raw embed (info)",
+            f"{b['child_peak_rss_mb']:.0f} MB",
+            "",
+            "info",
+        ),
+    ]
+    extra: dict[str, Any] = {"peak_rss_mb_2000_child_total": b["child_peak_rss_mb"]}
+    large = bench.sizes.large_build_documents
+    if large is None:
+        rows.append(("full build of 20,000 docs", "skipped (--quick)", "close to 2,000", "n/a"))
+        extra["peak_rss_mb_20000"] = None
+    else:
+        big = _large_build(bench)
+        rows.append(
+            (
+                f"full build of {large} docs",
+                f"{big['build_peak_rss_mb']:.0f} MB ({big['full_seconds']:.0f} s)",
+                "close to 2,000's",
+                _verdict(big["build_peak_rss_mb"] <= 1.5 * value),
+            )
+        )
+        extra["peak_rss_mb_20000"] = big["build_peak_rss_mb"]
+    return Figure("peak_rss_mb", value, rows, extra)
+
+
+def _large_build(bench: Bench) -> dict[str, Any]:
+    if "large_build" not in bench.shared:
+        n = bench.sizes.large_build_documents or bench.sizes.rescan_documents
+        corpus = bench.workdir / f"corpus-{n}"
+        corpora.write_corpus(corpus, n)
+        index_dir = bench.workdir / f"index-{n}"
+        result = build_in_child(corpus, index_dir, bench.model, documents=n)
+        result.update(corpus=str(corpus), index=str(index_dir), documents=n)
+        bench.shared["large_build"] = result
+    return bench.shared["large_build"]
+
+
+# --- 3. no-change rescan -----------------------------------------------------------------------
+
+
+def rescan_ratio(bench: Bench) -> Figure:
+    """A no-change sync of the built source and a list-only scan of the small-file tree, each
+    over a bare os.scandir + stat walk of the same tree in the same run; the worse of the two."""
+    from connectors.folder import FolderSource
+    from pipeline import formats
+    from pipeline.index import Index
+
+    if bench.sizes.rescan_documents == bench.sizes.build_documents:
+        built = _main_build(bench)
+    else:
+        built = _large_build(bench)
+    corpus, index_dir = Path(built["corpus"]), Path(built["index"])
+    index = Index(index_dir)
+    started = time.perf_counter()
+    index.embedder()
+    model_load = time.perf_counter() - started
+    reports = []
+    sync_seconds = _best_of(3, lambda: reports.append(index.sync([corpus])))
+    walk_seconds = _best_of(3, lambda: corpora.bare_walk(corpus))
+    unchanged = reports[-1].counts.documents["unchanged"]
+    sync_ratio = sync_seconds / walk_seconds
+
+    tree = bench.workdir / f"tree-{bench.sizes.scan_files}"
+    if not tree.exists():
+        started = time.perf_counter()
+        corpora.write_small_file_tree(tree, bench.sizes.scan_files)
+        bench.log(
+            f"  wrote {bench.sizes.scan_files} small files in {time.perf_counter() - started:.1f} s"
+        )
+    source = FolderSource.from_path(
+        tree, accept=lambda key: formats.media_type_for(key) is not None
+    )
+    listed: list[int] = []
+    corpora.bare_walk(tree)  # warm the directory cache for both sides alike
+    scan_seconds = _best_of(3, lambda: listed.append(sum(1 for _ in source.list_items())))
+    tree_walk_seconds = _best_of(3, lambda: corpora.bare_walk(tree))
+    scan_ratio = scan_seconds / tree_walk_seconds
+    worse = max(sync_ratio, scan_ratio)
+    rows = [
+        (
+            f"no-change sync / walk, {unchanged} docs",
+            f"{sync_ratio:.2f}",
+            "<= 2.0",
+            _verdict(sync_ratio <= 2.0),
+        ),
+        (
+            "  (info) sync, walk, model load",
+            f"{sync_seconds:.3f} s, {walk_seconds:.3f} s, {model_load:.2f} s",
+            "",
+            "info",
+        ),
+        (
+            f"scan / walk, {listed[-1]} files",
+            f"{scan_ratio:.2f}",
+            "<= 2.0",
+            _verdict(scan_ratio <= 2.0),
+        ),
+        ("  (info) scan, walk", f"{scan_seconds:.3f} s, {tree_walk_seconds:.3f} s", "", "info"),
+    ]
+    extra = {
+        "rescan_ratio_sync": sync_ratio,
+        "rescan_ratio_scan": scan_ratio,
+        "rescan_detail": {
+            "sync_documents": unchanged,
+            "scan_files": listed[-1],
+            "sync_seconds": sync_seconds,
+            "sync_walk_seconds": walk_seconds,
+            "scan_seconds": scan_seconds,
+            "scan_walk_seconds": tree_walk_seconds,
+            "model_load_seconds": model_load,
+        },
+    }
+    return Figure("rescan_ratio", worse, rows, extra)
+
+
+# --- 5. search ---------------------------------------------------------------------------------
+
+
+def _clustered_unit_vectors(
+    rng: np.random.Generator, n: int, dim: int, clusters: int
+) -> np.ndarray:
+    # Clustered rather than uniform: sentence embeddings of one collection bunch by topic, and
+    # uniform random vectors would make every neighbour almost equally far (common practice).
+    centres = rng.standard_normal((clusters, dim)).astype(np.float32)
+    vectors = centres[rng.integers(0, clusters, n)] + 0.6 * rng.standard_normal((n, dim)).astype(
+        np.float32
+    )
+    vectors /= np.linalg.norm(vectors, axis=1, keepdims=True)
+    return vectors
+
+
+def _chunk_rows(start: int, vectors: np.ndarray, chunks_per_doc: int) -> pa.Table:
+    from pipeline.store import chunks_schema
+
+    n, dim = vectors.shape
+    schema = chunks_schema(dim)
+    ids = range(start, start + n)
+    columns: dict[str, pa.Array] = {
+        "chunk_id": pa.array([f"{i:032x}" for i in ids], pa.string()),
+        "doc_id": pa.array([f"bench:doc-{i // chunks_per_doc:06d}.md" for i in ids], pa.string()),
+        "source": pa.array(["bench"] * n, pa.string()),
+        "path": pa.array([f"doc-{i // chunks_per_doc:06d}.md" for i in ids], pa.string()),
+        "ordinal": pa.array([i % chunks_per_doc for i in ids], pa.int32()),
+        "text": pa.array([f"Generated chunk {i} of the Marrowby search benchmark." for i in ids]),
+        "text_hash": pa.array([f"{i:064x}" for i in ids], pa.string()),
+        "media_type": pa.array(["text/markdown"] * n, pa.string()),
+        "vector": pa.FixedSizeListArray.from_arrays(pa.array(vectors.ravel()), dim),
+    }
+    arrays = [columns.get(f.name, pa.nulls(n, f.type)) for f in schema]
+    return pa.Table.from_arrays(arrays, schema=schema)
+
+
+def _exact_top_k(matrix: np.ndarray, query: np.ndarray, k: int) -> np.ndarray:
+    scores = matrix @ query
+    top = np.argpartition(-scores, k)[:k]
+    return top[np.argsort(-scores[top])]
+
+
+def search(bench: Bench) -> Figure:
+    """p50/p95 of the engine's search query over generated chunks in a table made by the store,
+    over an exact numpy top-k on the same vectors; recall@10 against the exact answer; and a
+    doc_id-filtered search without and with a BTREE scalar index."""
+    from pipeline.index import SEARCH_COLUMNS
+    from pipeline.records import ChunkSettings
+    from pipeline.store import FORMAT_VERSION, Store
+
+    n, dim, k, per_doc = bench.sizes.search_rows, 384, 10, 10
+    rng = np.random.default_rng(11)
+    vectors = _clustered_unit_vectors(rng, n, dim, clusters=max(10, n // 100))
+    store = Store.create(
+        bench.workdir / f"search-{n}",
+        {
+            "format_version": FORMAT_VERSION,
+            "model": "bench-generated",
+            "model_id": "bench-generated",
+            "dimension": dim,
+            "chunking": ChunkSettings().as_dict(),
+        },
+    )
+    table = store.table("chunks")
+    # Ten appends, as a build commits in batches: the table holds several fragments.
+    step = max(1, n // 10)
+    for start in range(0, n, step):
+        table.add(_chunk_rows(start, vectors[start : start + step], per_doc))
+    queries = vectors[rng.integers(0, n, bench.sizes.queries)] + 0.3 * rng.standard_normal(
+        (bench.sizes.queries, dim)
+    ).astype(np.float32)
+    queries /= np.linalg.norm(queries, axis=1, keepdims=True)
+
+    def engine_query(q: np.ndarray, where: str | None = None) -> list[str]:
+        # The query Index.search runs (pipeline/index.py), minus embedding the query text.
+        builder = table.search(q, vector_column_name="vector").metric("cosine")
+        if where is not None:
+            builder = builder.where(where, prefilter=True)
+        return builder.select(SEARCH_COLUMNS).limit(k).to_arrow()["chunk_id"].to_pylist()
+
+    for q in queries[:5]:
+        engine_query(q)
+        _exact_top_k(vectors, q, k)
+    engine_times, exact_times, recalls = [], [], []
+    for q in queries:
+        started = time.perf_counter()
+        got = engine_query(q)
+        engine_times.append(time.perf_counter() - started)
+        started = time.perf_counter()
+        exact = _exact_top_k(vectors, q, k)
+        exact_times.append(time.perf_counter() - started)
+        recalls.append(len({int(c, 16) for c in got} & set(exact.tolist())) / k)
+
+    def pct(values: list[float], p: float) -> float:
+        return float(np.percentile(values, p))
+
+    p50_ratio = pct(engine_times, 50) / pct(exact_times, 50)
+    p95_ratio = pct(engine_times, 95) / pct(exact_times, 95)
+    recall = float(statistics.fmean(recalls))
+
+    docs = n // per_doc
+    filter_docs = [
+        f"bench:doc-{d:06d}.md" for d in rng.integers(0, docs, bench.sizes.filtered_queries)
+    ]
+
+    def filtered_p50() -> float:
+        times = []
+        for q, doc in zip(queries, filter_docs, strict=False):
+            started = time.perf_counter()
+            engine_query(q, f"doc_id = '{doc}'")
+            times.append(time.perf_counter() - started)
+        return pct(times, 50)
+
+    filtered_plain = filtered_p50()
+    with warnings.catch_warnings():
+        # lancedb 0.40 marks this deprecated, but its LanceTable.create_index replacement only
+        # takes vector-index parameters; this is the call that builds a scalar BTREE here.
+        warnings.simplefilter("ignore", DeprecationWarning)
+        table.create_scalar_index("doc_id", index_type="BTREE")
+    filtered_btree = filtered_p50()
+    value = {
+        "p50_ratio": p50_ratio,
+        "p95_ratio": p95_ratio,
+        "recall_at_10": recall,
+        "p50_ms": pct(engine_times, 50) * 1000,
+        "p95_ms": pct(engine_times, 95) * 1000,
+        "exact_p50_ms": pct(exact_times, 50) * 1000,
+        "rows": n,
+        "queries": len(queries),
+        "filtered_p50_ms": filtered_plain * 1000,
+        "filtered_btree_p50_ms": filtered_btree * 1000,
+        "filtered_btree_speedup": filtered_plain / filtered_btree,
+        "ann": None,
+    }
+    rows = [
+        (
+            f"p50 / numpy exact, {n} rows",
+            f"{p50_ratio:.1f}",
+            "<= 2.0",
+            _verdict(p50_ratio <= 2.0),
+        ),
+        ("p95 / numpy exact", f"{p95_ratio:.1f}", "", "info"),
+        ("recall@10 vs exact", f"{recall:.3f}", ">= 0.98", _verdict(recall >= 0.98)),
+        (
+            "  (info) p50 engine, numpy",
+            f"{value['p50_ms']:.1f} ms, {value['exact_p50_ms']:.2f} ms",
+            "",
+            "info",
+        ),
+        (
+            "filtered by doc_id, p50 no index -> BTREE",
+            f"{filtered_plain * 1000:.1f} -> {filtered_btree * 1000:.1f} ms",
+            "",
+            "info",
+        ),
+        ("ANN index past a threshold", "n/a (needs an automatic vector index)", "", "n/a"),
+    ]
+    return Figure("search", value, rows)
+
+
+# --- 7. many small commits ---------------------------------------------------------------------
+
+
+def _folder_usage(path: Path) -> tuple[int, int, int]:
+    """(all files, data files of the chunks table, bytes) under an index folder."""
+    files = data_files = size = 0
+    for folder, _, names in os.walk(path):
+        for name in names:
+            files += 1
+            size += os.stat(os.path.join(folder, name)).st_size
+            if folder.startswith(os.path.join(str(path), "chunks.lance", "data")):
+                data_files += 1
+    return files, data_files, size
+
+
+def many_commits(bench: Bench) -> Figure:
+    """Versions, files and disk use after N one-document syncs, and flat search latency before
+    and after. Uses the model-free hash embedder: the figure is about storage, not vectors."""
+    from pipeline.index import SEARCH_COLUMNS, Index
+
+    corpus = bench.workdir / "commits-share"
+    documents = 20
+    for number in range(documents):
+        corpora.write_document(corpus, number * len(corpora.FORMATS))  # Markdown ones only
+    index_dir = bench.workdir / "commits-index"
+    index = Index(index_dir, model="hash")
+    index.sync([corpus])
+    rng = np.random.default_rng(3)
+    queries = rng.standard_normal((30, 384)).astype(np.float32)
+
+    def flat_p50_ms() -> float:
+        table = index.store().table("chunks")
+        table.checkout_latest()
+        times = []
+        for q in queries:
+            started = time.perf_counter()
+            table.search(q, vector_column_name="vector").metric("cosine").select(
+                SEARCH_COLUMNS
+            ).limit(10).to_arrow()
+            times.append(time.perf_counter() - started)
+        return float(np.percentile(times, 50)) * 1000
+
+    before_ms = flat_p50_ms()
+    files_before, data_before, bytes_before = _folder_usage(index_dir)
+    version_before = int(index.store().table("chunks").version)
+    started = time.perf_counter()
+    for n in range(bench.sizes.commits):
+        corpora.write_document(
+            corpus, (n % documents) * len(corpora.FORMATS), edits=n // documents + 1
+        )
+        index.sync([corpus])
+    seconds = time.perf_counter() - started
+    after_ms = flat_p50_ms()
+    files_after, data_after, bytes_after = _folder_usage(index_dir)
+    version_after = int(index.store().table("chunks").version)
+    value = {
+        "syncs": bench.sizes.commits,
+        "chunks_versions": version_after,
+        "chunks_versions_before": version_before,
+        "files": files_after,
+        "files_before": files_before,
+        "chunks_data_files": data_after,
+        "chunks_data_files_before": data_before,
+        "disk_mb": bytes_after / 2**20,
+        "disk_mb_before": bytes_before / 2**20,
+        "search_p50_ms_before": before_ms,
+        "search_p50_ms_after": after_ms,
+        "search_slowdown": after_ms / before_ms,
+        "after_maintenance": None,
+    }
+    rows = [
+        (
+            f"after {bench.sizes.commits} one-doc syncs: versions, files",
+            f"{version_after}, {files_after} (was {version_before}, {files_before})",
+            "",
+            "info",
+        ),
+        ("  chunks data files, disk", f"{data_after}, {bytes_after / 2**20:.1f} MB", "", "info"),
+        (
+            "flat search p50 after / before",
+            f"{after_ms / before_ms:.1f} ({before_ms:.1f} -> {after_ms:.1f} ms)",
+            "back after maintenance",
+            "info",
+        ),
+        ("  (info) mean seconds per sync", f"{seconds / bench.sizes.commits:.3f} s", "", "info"),
+        ("after maintenance", "n/a (needs `upwell maintain`)", "", "n/a"),
+    ]
+    return Figure("many_commits", value, rows)
+
+
+FIGURES: dict[str, Callable[[Bench], Figure]] = {
+    "edit_locality": edit_locality,
+    "incremental_ratio": incremental_ratio,
+    "rescan_ratio": rescan_ratio,
+    "embed_efficiency": embed_efficiency,
+    "search": search,
+    "peak_rss_mb": peak_rss_mb,
+    "many_commits": many_commits,
+}
