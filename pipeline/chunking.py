@@ -275,8 +275,10 @@ def chunk_segments(
         text = _join(members)
         # No context across a heading change: it would quote another section.
         section_start = start == 0 or units[start].anchor.heading != units[start - 1].anchor.heading
-        context_units = [] if section_start or previous is None else _context(
-            units[previous[0] : previous[1]], settings.overlap_tokens, counter
+        context_units = (
+            []
+            if section_start or previous is None
+            else _context(units[previous[0] : previous[1]], settings.overlap_tokens, counter)
         )
         context = _join(context_units)
         embed_text = join_context(context, text)

@@ -1,7 +1,7 @@
 """The ``upwell`` command line: parses, calls one ``Index`` method, prints.
 
 Exit codes: 0 done; 1 error; 2 usage error or a confirmation that was not given; 3 committed
-but some documents failed; 4 another writer holds the index.
+but some documents failed; 4 another writer holds the index; 6 syncing is paused.
 """
 
 from __future__ import annotations
@@ -13,7 +13,10 @@ import textwrap
 from collections.abc import Sequence
 from typing import Any
 
-from .errors import UpwellError
+from . import service_cli
+from .config import CONFIG_ENV, config_path_from, load_config
+from .errors import UpwellError, UsageError
+from .history_cli import add_history_commands
 from .index import DEFAULT_INDEX, Index, default_index_path
 from .progress import Progress
 
@@ -77,8 +80,27 @@ def _confirm_on_terminal(message: str) -> bool:
 # --- commands --------------------------------------------------------------------------------
 
 
+def _sync_targets(args: argparse.Namespace) -> list[Any]:
+    """Folders given on the command line, else the configured sources (all, or --source)."""
+    if args.paths:
+        if args.source:
+            raise UsageError("give folders or --source NAME, not both")
+        return list(args.paths)
+    config = args.config
+    if config is None:
+        raise UsageError(
+            "nothing to sync: give a folder, or a configuration (--config FILE or "
+            f"${CONFIG_ENV}) that lists sources"
+        )
+    if args.source:
+        return [config.source(name).folder_source() for name in args.source]
+    if not config.sources:
+        raise UsageError(f"config {config.file}: no [[source]] to sync")
+    return [s.folder_source() for s in config.sources]
+
+
 def cmd_sync(args: argparse.Namespace, index: Index) -> int:
-    report = index.sync(args.paths, yes=args.yes, confirm=_confirm_on_terminal)
+    report = index.sync(_sync_targets(args), yes=args.yes, confirm=_confirm_on_terminal)
     data = report.as_dict()
     if args.json:
         _json_out(data)
@@ -101,7 +123,7 @@ def cmd_sync(args: argparse.Namespace, index: Index) -> int:
 
 
 def cmd_search(args: argparse.Namespace, index: Index) -> int:
-    hits = index.search(args.query, k=args.k, source=args.source)
+    hits = index.search(args.query, k=args.k, source=args.source, as_of=args.as_of)
     if args.json:
         _json_out(
             {
@@ -195,6 +217,19 @@ def build_parser() -> argparse.ArgumentParser:
         "'onnx:MODEL.onnx,TOKENIZER.json' for another export, or 'hash' (no model; for tests). "
         "An existing index uses the model it was built with.",
     )
+    parser.add_argument(
+        "--config",
+        metavar="FILE",
+        default=None,
+        help=f"TOML configuration (default: ${CONFIG_ENV}); gives the index folder, the model "
+        "and the sources; --index and --model still win",
+    )
+    parser.add_argument(
+        "--log-format",
+        choices=("text", "json"),
+        default="text",
+        help="log lines on stderr as text or as JSON lines (upwell watch)",
+    )
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
 
@@ -207,16 +242,24 @@ def build_parser() -> argparse.ArgumentParser:
         "source named after the folder (NAME=PATH names it); syncing one source never touches "
         "another. Each batch of changes is one commit.",
         epilog="examples:\n  upwell sync sample_corpus\n  upwell sync /srv/share/handbook "
-        "/srv/share/policies --json\n  upwell sync hr=/mnt/hr/docs\n\n"
+        "/srv/share/policies --json\n  upwell sync hr=/mnt/hr/docs\n"
+        "  upwell --config upwell.toml sync --source handbook\n\n"
         "exit codes: 0 done, 3 committed but some documents failed (see `upwell status`), "
         "2 a confirmation was needed (--yes), 4 another writer is running",
         formatter_class=_HelpFormatter,
     )
     p.add_argument(
         "paths",
-        nargs="+",
+        nargs="*",
         metavar="PATH",
-        help="folder to sync; each is a source named after the folder, or NAME=PATH to name it",
+        help="folder to sync; each is a source named after the folder, or NAME=PATH to name it. "
+        "Without one, every source of the configuration is synced",
+    )
+    p.add_argument(
+        "--source",
+        action="append",
+        metavar="NAME",
+        help="sync only this configured source (repeatable)",
     )
     p.add_argument(
         "--yes",
@@ -233,12 +276,20 @@ def build_parser() -> argparse.ArgumentParser:
         description="Embed QUERY with the index's model and return the K chunks with the highest "
         "cosine similarity, each with its citation: file, page, heading or time range.",
         epilog='examples:\n  upwell search "how do I return a damaged frame"\n  upwell search '
-        '"spoke tension" -k 5 --json',
+        '"spoke tension" -k 5 --json\n'
+        '  upwell search "brake hose routing" --as-of 2026-11-24T09:00',
         formatter_class=_HelpFormatter,
     )
     p.add_argument("query", metavar="QUERY")
     p.add_argument("-k", type=int, default=5, help="number of results (default 5)")
     p.add_argument("--source", default=None, help="only search this source")
+    p.add_argument(
+        "--as-of",
+        metavar="REF",
+        default=None,
+        help="search the index as it was at REF: a commit id (or prefix), a version number, "
+        "a tag, or an ISO-8601 time (the last commit at or before it; UTC if no zone)",
+    )
     p.add_argument("--snippet", type=int, default=240, help="characters of text to show")
     p.add_argument("--json", action="store_true", help="print results as JSON")
     p.set_defaults(func=cmd_search, writes=False)
@@ -254,18 +305,26 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("--json", action="store_true", help="print status as JSON")
     p.set_defaults(func=cmd_status, writes=False)
+
+    add_history_commands(sub, _HelpFormatter, _confirm_on_terminal)
+    service_cli.register(sub, _HelpFormatter)
     return parser
 
 
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
-    index = Index(
-        args.index or default_index_path(),
-        model=args.model,
-        progress=Progress(enabled=None),
-    )
     try:
+        config_file = config_path_from(args.config)
+        # `init` writes the file that --config or $UPWELL_CONFIG may already name
+        wanted = config_file is not None and args.command != "init"
+        args.config = load_config(config_file) if wanted and config_file else None
+        from_config = args.config.index_path if args.config else None
+        index = Index(
+            args.index or from_config or default_index_path(),
+            model=args.model or (args.config.model if args.config else None),
+            progress=Progress(enabled=None),
+        )
         return int(args.func(args, index))
     except UpwellError as exc:
         print(f"upwell: error: {exc}", file=sys.stderr)

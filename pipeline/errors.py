@@ -95,6 +95,12 @@ class IndexMissing(StoreError):
     """A read-only command was pointed at a folder that holds no upwell index."""
 
 
+class SyncPaused(StoreError):
+    """Syncing is paused after a rollback; ``upwell resume`` lifts it."""
+
+    exit_code = 6
+
+
 class ConfirmationRequired(UpwellError):
     """A destructive step needs confirmation and none was given (no terminal and no --yes)."""
 

@@ -13,13 +13,14 @@ Python; ``cli.py`` only parses arguments and prints.
 from __future__ import annotations
 
 import dataclasses
+import fnmatch
 import json
 import os
 import re
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import asdict, dataclass
-from datetime import UTC, datetime
+from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
 
@@ -27,14 +28,15 @@ import numpy as np
 
 from connectors.folder import FolderSource
 
-from . import formats
+from . import formats, history, maintenance
+from .history import Commit, Diff, RetentionPlan, RollbackPlan
 from .embedding import make_embedder
-from .errors import ConfirmationRequired, UsageError
+from .errors import ConfirmationRequired, SyncPaused, UnknownVersion, UsageError
 from .locking import writer_lock
 from .progress import Progress
-from .records import ChunkSettings, Limits
+from .records import ChunkSettings, Extracted, Fingerprint, Limits, SourceItem, segments_from_json
 from .store import FORMAT_VERSION, Store, quote
-from .sync import Source, SyncEngine, SyncReport
+from .sync import Source, SyncEngine, SyncReport, new_commit_id, utc_now
 
 DEFAULT_INDEX = ".upwell"
 _NAMED_PATH = re.compile(r"^([A-Za-z0-9][A-Za-z0-9_.-]*)=(.+)$")
@@ -179,6 +181,14 @@ class Index:
             self._chunking = ChunkSettings(**have["chunking"])
         store.check_settings({"model_id": self.embedder().model_id}, ["model_id"])
         store.refresh()
+        history.complete_pending(store)  # a rollback a crash interrupted is finished first
+        return store
+
+    def _open_existing_for_writing(self) -> Store:
+        """For writers that need an index to exist already (rollback, tag, erase, maintain)."""
+        store = self.store()
+        store.refresh()
+        history.complete_pending(store)
         return store
 
     # --- writing --------------------------------------------------------------------------------
@@ -224,6 +234,13 @@ class Index:
             raise UsageError(f"two sources share a name: {names}; name them apart with NAME=PATH")
         with self.writing():
             store = self._store_for_writing()
+            paused = store.settings().get(history.PAUSED)
+            if paused:
+                raise SyncPaused(
+                    f"syncing is paused since {paused['since']} by the rollback "
+                    f"{paused['commit']} to {paused['rollback_to']}; `upwell resume` lifts the "
+                    "pause (the next sync then re-applies what changed at the sources)"
+                )
             locations = self._check_locations(store, resolved, yes=yes, confirm=confirm)
             engine = SyncEngine(
                 store,
@@ -290,15 +307,26 @@ class Index:
 
     # --- reading --------------------------------------------------------------------------------
 
-    def search(self, query: str, k: int = 10, *, source: str | None = None) -> list[Hit]:
-        """The ``k`` chunks most similar to ``query`` by cosine similarity, best first."""
+    def search(
+        self, query: str, k: int = 10, *, source: str | None = None, as_of: str | None = None
+    ) -> list[Hit]:
+        """The ``k`` chunks most similar to ``query`` by cosine similarity, best first.
+
+        With ``as_of`` (any REF: commit, version, tag or time) the index as it was then.
+        """
         if not query.strip():
             raise UsageError("the search query is empty")
         if k < 1:
             raise UsageError(f"-k must be at least 1, not {k}")
         store = self.store()
+        table = store.table("chunks")
+        if as_of is not None:
+            commit = history.resolve(store, as_of)
+            history.dataset_at(store, "chunks", commit.version)  # a clear error if it is gone
+            table = store.db.open_table("chunks")
+            table.checkout(commit.version)
         vector = np.asarray(self.embedder().embed([query])[0], dtype=np.float32)
-        q = store.table("chunks").search(vector, vector_column_name="vector").metric("cosine")
+        q = table.search(vector, vector_column_name="vector").metric("cosine")
         if source is not None:
             q = q.where(f"source = {quote(source)}", prefilter=True)
         rows = q.select(SEARCH_COLUMNS).limit(k).to_arrow().to_pylist()
@@ -322,6 +350,232 @@ class Index:
             )
             for r in rows
         ]
+
+    # --- history ------------------------------------------------------------------------------
+
+    def history(self, limit: int | None = None) -> list[Commit]:
+        """Commits, newest first."""
+        log = history.commits(self.store())
+        log.reverse()
+        return log[:limit] if limit else log
+
+    def resolve(self, ref: str) -> Commit:
+        """The commit a REF names: tag, version number, commit id (prefix) or ISO-8601 time."""
+        return history.resolve(self.store(), ref)
+
+    def diff(self, ref: str, ref2: str | None = None) -> Diff:
+        """Documents and chunks added, changed and removed between two commits.
+
+        With one REF: that commit against its parent. With two: from REF to REF2.
+        """
+        store = self.store()
+        log = history.commits(store)
+        first = history.resolve(store, ref, log)
+        if ref2 is None:
+            return history.diff(store, history.parent(log, first), first)
+        return history.diff(store, first, history.resolve(store, ref2, log))
+
+    def tags(self) -> dict[str, Commit]:
+        store = self.store()
+        log = {c.id: c for c in history.commits(store)}
+        return {name: log[cid] for name, cid in sorted(history.tags(store).items()) if cid in log}
+
+    def tag(self, name: str, ref: str | None = None) -> Commit:
+        """Name a commit (default: the latest). A tagged commit is never removed by retention."""
+        with self.writing():
+            store = self._open_existing_for_writing()
+            log = history.commits(store)
+            if not log:
+                raise UnknownVersion("the index has no commits to tag yet")
+            commit = history.resolve(store, ref, log) if ref else log[-1]
+            history.create_tag(store, name, commit)
+            return commit
+
+    def untag(self, name: str) -> str:
+        with self.writing():
+            return history.delete_tag(self._open_existing_for_writing(), name)
+
+    def plan_rollback(self, ref: str) -> RollbackPlan:
+        store = self.store()
+        log = history.commits(store)
+        return history.plan_rollback(store, history.resolve(store, ref, log), log[-1])
+
+    def rollback(
+        self,
+        ref: str,
+        *,
+        pause: bool = False,
+        yes: bool = False,
+        confirm: Callable[[str], bool] | None = None,
+    ) -> Commit:
+        """Make the index what it was at REF, as new versions on top (history is kept).
+
+        Says what will change and asks first unless ``yes``. With ``pause``, syncing stops
+        until ``resume()``, so the next sync does not re-apply what was rolled back. Safe to
+        interrupt: the next writer completes the rollback.
+        """
+        with self.writing():
+            store = self._open_existing_for_writing()
+            log = history.commits(store)
+            target = history.resolve(store, ref, log)
+            plan = history.plan_rollback(store, target, log[-1])
+            message = plan.describe()
+            if not pause:
+                message += (
+                    "\nThe next sync will re-apply whatever differs at the sources; use --pause "
+                    "to stop syncing until `upwell resume`."
+                )
+            if not yes and (confirm is None or not confirm(message + "\nRoll back?")):
+                raise ConfirmationRequired(message + "\nNothing was changed; re-run with --yes.")
+            commit_id = new_commit_id()
+            history.start_rollback(store, plan, commit_id, utc_now(), pause)
+            return history.resolve(store, commit_id)
+
+    def resume(self) -> dict[str, Any] | None:
+        """Lift a pause set by ``rollback(pause=True)``; None if syncing was not paused."""
+        with self.writing():
+            return history.resume(self._open_existing_for_writing())
+
+    def rebuild(
+        self,
+        into: str | os.PathLike[str],
+        *,
+        as_of: str | None = None,
+        model: str | None = None,
+        chunking: dict[str, int] | None = None,
+    ) -> SyncReport:
+        """A new index in ``into`` built from this index's stored text; no source is read.
+
+        Chunking settings not given are kept; the model is kept unless ``model`` names
+        another. Vectors are reused wherever the model and the exact text match.
+        """
+        store = self.store()
+        settings = store.settings()
+        if as_of is not None:
+            commit = history.resolve(store, as_of)
+            documents = history.dataset_at(store, "documents", commit.documents_version)
+        else:
+            documents = store.table("documents").to_lance()
+        target = Index(
+            into,
+            model=model or settings.get("model", DEFAULT_MODEL),
+            chunking=ChunkSettings(**{**settings["chunking"], **(chunking or {})}),
+            limits=self.limits,
+            progress=self.progress,
+            batch_documents=self.batch_documents,
+        )
+        if target.exists:
+            raise UsageError(f"{target.path} already holds an index; rebuild into a new folder")
+        report = SyncReport()
+        with target.writing():
+            new_store = target._store_for_writing()
+            embedder = target.embedder()
+            same_model = embedder.model_id == settings.get("model_id")
+            engine = SyncEngine(
+                new_store,
+                embedder,
+                target._chunking or ChunkSettings(),
+                self.limits,
+                progress=self.progress,
+                vector_sources=[store] if same_model else [],
+            )
+            by_source: dict[str, list[dict[str, Any]]] = {}
+            for row in documents.to_table().to_pylist():
+                if row["content_hash"]:  # a document that never extracted has no text to keep
+                    by_source.setdefault(row["source"], []).append(row)
+            for source, rows in sorted(by_source.items()):
+                rows.sort(key=lambda r: r["path"])
+                for i in range(0, len(rows), self.batch_documents):
+                    batch = [_stored_document(r) for r in rows[i : i + self.batch_documents]]
+                    engine.ingest_extracted(source, batch, report, trigger="rebuild")
+            locations = settings.get("source_locations")
+            if locations:
+                new_store.update_setting("source_locations", locations)
+        return report
+
+    # --- upkeep ---------------------------------------------------------------------------------
+
+    def plan_retention(self, keep_days: float = 30.0) -> RetentionPlan:
+        return history.plan_retention(self.store(), timedelta(days=keep_days))
+
+    def maintain(
+        self,
+        *,
+        keep_days: float = 30.0,
+        yes: bool = False,
+        confirm: Callable[[str], bool] | None = None,
+    ) -> dict[str, Any]:
+        """Compact the tables, create scalar indexes once they pay, and remove versions older
+        than ``keep_days`` (never tagged ones, never what a paused rollback replaced).
+
+        Removing versions destroys history, so it asks first unless ``yes`` (when there is
+        anything to remove).
+        """
+        with self.writing():
+            store = self._open_existing_for_writing()
+            plan = history.plan_retention(store, timedelta(days=keep_days))
+            if plan.commits_lost and not yes:
+                message = plan.describe()
+                if confirm is None or not confirm(message + "\nRemove them?"):
+                    raise ConfirmationRequired(
+                        message + "\nNothing was changed; re-run with --yes."
+                    )
+            created = maintenance.ensure_scalar_indexes(store)
+            report = maintenance.compact_and_clean(store, timedelta(days=keep_days))
+            report.indexes_created = created
+            return {
+                "retention_days": keep_days,
+                "commits_past_retention": len(plan.commits_lost),
+                **report.as_dict(),
+            }
+
+    def erase(
+        self,
+        patterns: Sequence[str],
+        *,
+        yes: bool = False,
+        confirm: Callable[[str], bool] | None = None,
+    ) -> dict[str, Any]:
+        """Forget documents completely: rows, cached vectors, and every old version holding them.
+
+        ``patterns`` are globs matched against ``source/path``, ``path`` or the doc id. This
+        rewrites history: earlier rollback points and tags are lost. Asks first unless ``yes``.
+        """
+        with self.writing():
+            store = self._open_existing_for_writing()
+            docs = store.all_documents(["doc_id", "source", "path"])
+            matched = sorted(
+                d["doc_id"]
+                for d in docs
+                if any(
+                    fnmatch.fnmatchcase(f"{d['source']}/{d['path']}", p)
+                    or fnmatch.fnmatchcase(d["path"], p)
+                    or fnmatch.fnmatchcase(d["doc_id"], p)
+                    for p in patterns
+                )
+            )
+            if not matched:
+                raise UsageError(f"no document matches {', '.join(patterns)}")
+            shown = ", ".join(matched[:10]) + (
+                f" and {len(matched) - 10} more" if len(matched) > 10 else ""
+            )
+            tag_names = sorted(history.tags(store))
+            message = (
+                f"Erasing {len(matched)} documents for good: {shown}.\n"
+                "Their chunks, cached vectors and stored text are deleted, and every earlier "
+                "version of the index is removed so none still holds them: all earlier rollback "
+                "points are lost"
+                + (f", and the tags {', '.join(tag_names)} are dropped" if tag_names else "")
+                + ". This cannot be undone. (If a file is still at its source, the next sync "
+                "indexes it again: remove it there, or exclude it, first.)"
+            )
+            if not yes and (confirm is None or not confirm(message + "\nErase?")):
+                raise ConfirmationRequired(message + "\nNothing was changed; re-run with --yes.")
+            result = maintenance.erase_documents(
+                store, matched, commit_id=new_commit_id(), now=utc_now()
+            )
+            store.refresh()
+            return {"erased": matched, **result}
 
     def status(self) -> dict[str, Any]:
         """Totals, per-source counts, failed documents with reasons, model and last commit."""
@@ -386,7 +640,27 @@ class Index:
             "chunking": settings.get("chunking"),
             "version": int(store.table("chunks").version),
             "last_commit": _commit_summary(last) if last else None,
+            "paused": settings.get(history.PAUSED),
+            "pending_rollback": bool(settings.get(history.PENDING_ROLLBACK)),
+            "tags": sorted(settings.get("tags", {})),
         }
+
+
+def _stored_document(row: dict[str, Any]) -> tuple[SourceItem, str, Extracted, str]:
+    """A documents-table row as an already-extracted document (for rebuild)."""
+    size, mtime_ns, inode, tag = (row["fingerprint"] or "0:0:0:").split(":", 3)
+    item = SourceItem(
+        source=row["source"],
+        key=row["path"],
+        fingerprint=Fingerprint(size=int(size), mtime_ns=int(mtime_ns), inode=int(inode), tag=tag),
+    )
+    extracted = Extracted(
+        media_type=row["media_type"],
+        segments=segments_from_json(row["segments"]),
+        title=row["title"],
+        warnings=tuple(json.loads(row["warnings"] or "[]")),
+    )
+    return item, row["content_hash"], extracted, row["segments"]
 
 
 def _commit_summary(row: dict[str, Any]) -> dict[str, Any]:

@@ -196,7 +196,7 @@ class Store:
             ("commits", COMMITS_SCHEMA, "commit_id"),
             ("vectors", vectors_schema(dim), "text_hash"),
         ):
-            table = db.create_table(name, schema=schema, exist_ok=True)
+            table: Any = db.create_table(name, schema=schema, exist_ok=True)
             # Measured with lancedb 0.40: without a declared key, two concurrent inserts of one
             # new key both land.
             table.set_unenforced_primary_key(key)

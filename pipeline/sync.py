@@ -47,7 +47,8 @@ OUTCOMES = ("added", "modified", "removed", "moved", "unchanged", "failed")
 class Source(Protocol):
     """What the engine needs of a connector."""
 
-    name: str
+    @property
+    def name(self) -> str: ...
 
     def list_items(self) -> Iterable[SourceItem]: ...
 
@@ -509,6 +510,59 @@ class SyncEngine:
             }
         )
         return CommitResult(commit_id, version or versions["chunks"], counts)
+
+    def ingest_extracted(
+        self,
+        source_name: str,
+        documents: Sequence[tuple[SourceItem, str, Extracted, str]],
+        report: SyncReport,
+        *,
+        trigger: str,
+    ) -> CommitResult | None:
+        """Commit already-extracted documents as additions, in one batch.
+
+        Each document is (item, content hash, extracted text, its segments JSON). This is how a
+        rebuild indexes stored text without reading any source.
+        """
+        started = time.monotonic()
+        work = [
+            _DocWork(
+                item,
+                "added",
+                content_hash,
+                extracted,
+                seg_json,
+                chunk_segments(
+                    item.doc_id,
+                    extracted.segments,
+                    self.embedder.tokens,
+                    self.chunking,
+                    self.embedder.max_input_tokens,
+                ),
+            )
+            for item, content_hash, extracted, seg_json in documents
+        ]
+        if not work:
+            return None
+        counts = Counts()
+        changes: dict[str, list[Any]] = {k: [] for k in OUTCOMES if k != "unchanged"}
+        result = self._apply(
+            source_name,
+            work,
+            [],
+            [],
+            {},
+            counts,
+            changes,
+            commit_id=new_commit_id(),
+            now=utc_now(),
+            trigger=trigger,
+            started=started,
+        )
+        report.counts.add(counts)
+        report.commits.append(result)
+        report.version = result.version
+        return result
 
     # --- pieces ---------------------------------------------------------------------------------
 

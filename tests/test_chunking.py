@@ -92,8 +92,9 @@ def test_contexts_are_whole_units_from_the_end_of_the_previous_chunk() -> None:
     # holds exactly three and a 10-token overlap exactly two.
     assert COUNTER.count(sentences) == [5] * 6
     segments = [Segment(" ".join(sentences), Anchor(heading="Wheel"))]
-    chunk_settings = ChunkSettings(min_tokens=0, max_tokens=15, overlap_tokens=10,
-                                   cut_modulus=NO_CONTENT_CUTS)
+    chunk_settings = ChunkSettings(
+        min_tokens=0, max_tokens=15, overlap_tokens=10, cut_modulus=NO_CONTENT_CUTS
+    )
     chunks = chunk_segments("share:wheel.md", segments, COUNTER, chunk_settings)
     assert [c.text for c in chunks] == [" ".join(sentences[:3]), " ".join(sentences[3:])]
     assert [c.context for c in chunks] == ["", "Check spoke B now. Check spoke C now."]
@@ -105,8 +106,9 @@ def test_contexts_are_whole_units_from_the_end_of_the_previous_chunk() -> None:
 
 def test_context_is_empty_when_the_last_unit_is_longer_than_the_overlap() -> None:
     segments = [Segment("Check spoke A now. Check spoke B now.", Anchor())]
-    chunk_settings = ChunkSettings(min_tokens=0, max_tokens=5, overlap_tokens=4,
-                                   cut_modulus=NO_CONTENT_CUTS)
+    chunk_settings = ChunkSettings(
+        min_tokens=0, max_tokens=5, overlap_tokens=4, cut_modulus=NO_CONTENT_CUTS
+    )
     chunks = chunk_segments("share:wheel.md", segments, COUNTER, chunk_settings)
     assert [(c.text, c.context) for c in chunks] == [
         ("Check spoke A now.", ""),
@@ -122,7 +124,10 @@ def test_pages_times_and_lines_merge_into_ranges() -> None:
     ]
     (chunk,) = chunk_segments("share:manual.pdf", pdf, COUNTER, one_chunk)
     assert (chunk.page_start, chunk.page_end, chunk.text) == (
-        2, 3, "Torque the crank to spec.\nFront hub")
+        2,
+        3,
+        "Torque the crank to spec.\nFront hub",
+    )
     cues = [
         Segment("Now the chain.", Anchor(start=12.5, end=20.0), kind=CUE),
         Segment("Count the links.", Anchor(start=20.0, end=31.0), kind=CUE),
@@ -156,14 +161,18 @@ WORDS = st.one_of(
     st.sampled_from("hub spoke rim torque crank bolt the a of Marrowby".split()),
     st.from_regex(r"[A-Z][a-z]{1,8}[.!?]", fullmatch=True),
     st.integers(0, 10**30).map(str),
-    st.text(alphabet=st.characters(codec="utf-8", exclude_categories=("Cs", "Cc")),
-            min_size=1, max_size=12),
+    st.text(
+        alphabet=st.characters(codec="utf-8", exclude_categories=("Cs", "Cc")),
+        min_size=1,
+        max_size=12,
+    ),
     st.text(alphabet="xyzqjk", min_size=30, max_size=400),  # a giant "word"
 )
 SEGMENTS = st.lists(
     st.builds(
-        lambda words, kind, page, heading: Segment(" ".join(words), Anchor(page=page,
-                                                                            heading=heading), kind),
+        lambda words, kind, page, heading: Segment(
+            " ".join(words), Anchor(page=page, heading=heading), kind
+        ),
         st.lists(WORDS, min_size=1, max_size=80),
         st.sampled_from([PARAGRAPH, PARAGRAPH, LIST_ITEM, TABLE_ROW, CUE]),
         st.integers(1, 4),
@@ -208,19 +217,26 @@ def test_a_giant_single_sentence_fits_the_model() -> None:
 
 # --- edit locality ---------------------------------------------------------------------------
 
-NOUNS = ("hub spoke rim chainring cassette derailleur crank axle bearing headset fork frame "
-         "saddle seatpost brake caliper rotor cable housing tyre valve chain sprocket pedal stem "
-         "bar grip bolt washer spacer wrench stand jig lathe fixture gauge grease solvent").split()
-VERBS = ("check tighten loosen inspect clean replace adjust align true measure grease fit remove "
-         "torque seat tension record mark").split()
-ADJECTIVES = ("rear front left right worn new polished stiff loose dry clean damaged alloy steel "
-              "carbon sealed threaded").split()
+NOUNS = (
+    "hub spoke rim chainring cassette derailleur crank axle bearing headset fork frame "
+    "saddle seatpost brake caliper rotor cable housing tyre valve chain sprocket pedal stem "
+    "bar grip bolt washer spacer wrench stand jig lathe fixture gauge grease solvent"
+).split()
+VERBS = (
+    "check tighten loosen inspect clean replace adjust align true measure grease fit remove "
+    "torque seat tension record mark"
+).split()
+ADJECTIVES = (
+    "rear front left right worn new polished stiff loose dry clean damaged alloy steel "
+    "carbon sealed threaded"
+).split()
 EDIT_KINDS = ("sentence", "paragraph", "insert", "insert_top", "delete", "append")
 
 
 def workshop_sentence(rng: random.Random) -> str:
-    words = [rng.choice(rng.choice((NOUNS, VERBS, ADJECTIVES, NOUNS)))
-             for _ in range(rng.randint(5, 16))]
+    words = [
+        rng.choice(rng.choice((NOUNS, VERBS, ADJECTIVES, NOUNS))) for _ in range(rng.randint(5, 16))
+    ]
     if rng.random() < 0.3:
         words.insert(rng.randrange(len(words)), f"{rng.randint(2, 60)} N·m")
     text = " ".join(words)
@@ -245,8 +261,9 @@ def as_segments(manual: list[tuple[str, str]]) -> list[Segment]:
     return [Segment(text, Anchor(heading=heading)) for text, heading in manual]
 
 
-def apply_edit(rng: random.Random, manual: list[tuple[str, str]], kind: str
-               ) -> tuple[list[tuple[str, str]], str, str]:
+def apply_edit(
+    rng: random.Random, manual: list[tuple[str, str]], kind: str
+) -> tuple[list[tuple[str, str]], str, str]:
     """The edited manual, the text before the edit point, and the new text inserted there."""
     edited = list(manual)
     at = 0 if kind == "insert_top" else rng.randrange(len(manual))
@@ -277,8 +294,9 @@ def apply_edit(rng: random.Random, manual: list[tuple[str, str]], kind: str
     return edited, before, new_text
 
 
-def run_edit(seed: int, kind: str, headings: bool, chunk_settings: ChunkSettings,
-             max_input: int) -> tuple[int, int, list[str], list[str], int]:
+def run_edit(
+    seed: int, kind: str, headings: bool, chunk_settings: ChunkSettings, max_input: int
+) -> tuple[int, int, list[str], list[str], int]:
     """(new chunk count, tokens inserted, old hashes, new hashes, old chunks before the edit)."""
     rng = random.Random(seed)
     manual = workshop_manual(rng, headings)
@@ -296,8 +314,13 @@ def run_edit(seed: int, kind: str, headings: bool, chunk_settings: ChunkSettings
         wholly_before += 1
     # The document's last chunk ends at the end of the text, not at a content cut.
     wholly_before = min(wholly_before, len(old) - 1)
-    return (fresh, COUNTER.count_one(new_text) if new_text else 0,
-            [c.text_hash for c in old], [c.text_hash for c in new], wholly_before)
+    return (
+        fresh,
+        COUNTER.count_one(new_text) if new_text else 0,
+        [c.text_hash for c in old],
+        [c.text_hash for c in new],
+        wholly_before,
+    )
 
 
 @settings(max_examples=120, deadline=None)
@@ -309,8 +332,9 @@ def test_without_forced_cuts_an_edit_changes_at_most_two_chunks_plus_one_per_min
     # units since the previous candidate. So the cuts that can change are those inside the new
     # text and at the first candidate after it; new cuts inside it are min_tokens apart. Hence:
     # new chunks <= 2 (the edited span, and the next chunk's context) + cuts in the new text.
-    fresh, inserted, old, new, wholly_before = run_edit(seed, kind, headings, UNBOUNDED,
-                                                        UNBOUNDED_INPUT)
+    fresh, inserted, old, new, wholly_before = run_edit(
+        seed, kind, headings, UNBOUNDED, UNBOUNDED_INPUT
+    )
     cuts_inside = 0 if inserted == 0 else 1 + inserted // UNBOUNDED.min_tokens
     assert fresh <= 2 + cuts_inside
     if inserted < UNBOUNDED.min_tokens:  # one sentence: the bound DESIGN section 4 states
@@ -340,15 +364,21 @@ def test_with_default_settings_an_edit_changes_few_chunks_and_none_before_it(
 
 def measure(manuals: int) -> None:
     """Print the edit-locality distribution and chunk sizes for the default settings."""
-    for label, chunk_settings, max_input in (("default", ChunkSettings(), 254),
-                                             ("no maximum", UNBOUNDED, UNBOUNDED_INPUT)):
+    for label, chunk_settings, max_input in (
+        ("default", ChunkSettings(), 254),
+        ("no maximum", UNBOUNDED, UNBOUNDED_INPUT),
+    ):
         print(f"settings: {label}")
         for kind in EDIT_KINDS:
-            counts = [run_edit(seed, kind, seed % 2 == 0, chunk_settings, max_input)[0]
-                      for seed in range(manuals)]
+            counts = [
+                run_edit(seed, kind, seed % 2 == 0, chunk_settings, max_input)[0]
+                for seed in range(manuals)
+            ]
             histogram = sorted(collections.Counter(counts).items())
-            print(f"  {kind:11s} mean {sum(counts) / len(counts):.2f} max {max(counts)} "
-                  f"histogram {histogram}")
+            print(
+                f"  {kind:11s} mean {sum(counts) / len(counts):.2f} max {max(counts)} "
+                f"histogram {histogram}"
+            )
     rng = random.Random(7)
     documents = [as_segments(workshop_manual(rng, True)) for _ in range(50)]
     began = time.perf_counter()
@@ -356,8 +386,10 @@ def measure(manuals: int) -> None:
     seconds = time.perf_counter() - began
     tokens = sum(COUNTER.count([s.text for doc in documents for s in doc]))
     mean_tokens = sum(c.tokens for c in chunks) / len(chunks)
-    print(f"default settings: {len(chunks)} chunks, mean {mean_tokens:.1f} tokens (context "
-          f"included), {tokens / seconds:,.0f} source tokens/s")
+    print(
+        f"default settings: {len(chunks)} chunks, mean {mean_tokens:.1f} tokens (context "
+        f"included), {tokens / seconds:,.0f} source tokens/s"
+    )
 
 
 if __name__ == "__main__":

@@ -101,15 +101,29 @@ def test_errors_are_one_line_without_traceback(tmp_path, capsys):
     assert "does not exist" in err and "Traceback" not in err
 
 
-def test_usage_error_exit_code_and_help_examples(capsys):
+def test_usage_error_exit_code_and_help_examples(capsys, tmp_path, monkeypatch):
+    monkeypatch.delenv("UPWELL_CONFIG", raising=False)
+    assert main(["--index", str(tmp_path / "ix"), "sync"]) == 2  # no folder and no config
+    assert "nothing to sync" in capsys.readouterr().err
     with pytest.raises(SystemExit) as exc:
-        main(["sync"])
+        main(["search"])  # a missing argument is argparse's usage error
     assert exc.value.code == 2
     with pytest.raises(SystemExit):
         main(["--help"])
     out = capsys.readouterr().out
     assert "examples:" in out and "upwell sync sample_corpus" in out
-    for command in ("sync", "search", "status"):
+    for command in (
+        "sync",
+        "search",
+        "status",
+        "history",
+        "diff",
+        "tag",
+        "rollback",
+        "rebuild",
+        "erase",
+        "maintain",
+    ):
         with pytest.raises(SystemExit):
             main([command, "--help"])
         assert "example" in capsys.readouterr().out

@@ -153,7 +153,7 @@ def test_webvtt_without_signature_is_corrupt():
 
 def test_srt_tags_stripped_and_odd_layouts_read():
     text = (
-        "\ufeff1\r\n00:00:01,000 --> 00:00:02,000\r\n<i>Brake</i> <font color=\"red\">first</font>"
+        '\ufeff1\r\n00:00:01,000 --> 00:00:02,000\r\n<i>Brake</i> <font color="red">first</font>'
         "\r\n{\\an8}&amp; always\r\n2\r\n00:00:02.500 --> 00:00:03.000\r\nNo blank line before.\r\n"
     )
     segments = extract("brakes.srt", text.encode("utf-8")).segments

@@ -92,9 +92,7 @@ def _looks_binary(text: str) -> bool:
     if not sample:
         return False
     controls = sum(
-        1
-        for char in sample
-        if char not in _TEXT_CONTROLS and unicodedata.category(char) == "Cc"
+        1 for char in sample if char not in _TEXT_CONTROLS and unicodedata.category(char) == "Cc"
     )
     return controls / len(sample) > _BINARY_CONTROL_SHARE
 

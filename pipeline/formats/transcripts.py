@@ -222,8 +222,11 @@ _SRT_OVERRIDE = re.compile(r"\{\\[^}]*\}")  # ASS-style overrides some players h
 
 def _srt_seconds(hours: str | None, minutes: str, seconds: str, fraction: str) -> float:
     # The fraction is read as decimal digits: ",5" is half a second, ",500" too.
-    return int(hours or 0) * 3600 + int(minutes) * 60 + int(seconds) + int(fraction) / 10 ** len(
-        fraction
+    return (
+        int(hours or 0) * 3600
+        + int(minutes) * 60
+        + int(seconds)
+        + int(fraction) / 10 ** len(fraction)
     )
 
 
@@ -285,7 +288,5 @@ def _transcript(media_type: str, cues: list[_Cue], bad_timings: int) -> Extracte
         if bad_timings:
             raise CorruptDocument(f"no cue could be read: {warnings[0]}")
         raise EmptyDocument("the transcript has no cue text")
-    segments = tuple(
-        Segment(cue.text, Anchor(start=cue.start, end=cue.end), CUE) for cue in cues
-    )
+    segments = tuple(Segment(cue.text, Anchor(start=cue.start, end=cue.end), CUE) for cue in cues)
     return Extracted(media_type=media_type, segments=segments, warnings=warnings)

@@ -1,0 +1,392 @@
+"""The configuration file: one TOML file that every command (and the service) can read.
+
+``load_config(path)`` returns a frozen ``Config`` or raises ``UsageError`` with one line that
+names the file, the key and what is wrong with it, so an operator can fix it without a traceback.
+``STARTER_TEXT`` is what ``upwell init`` writes: a commented file that loads as it is.
+
+    [index]
+    path = "/var/lib/upwell/index"
+
+    [[source]]
+    name = "handbook"
+    path = "/srv/share/handbook"
+"""
+
+from __future__ import annotations
+
+import ipaddress
+import os
+import re
+import tomllib
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from connectors.folder import DEFAULT_EXCLUDE, FolderSource
+
+from . import formats
+from .errors import UsageError
+
+CONFIG_ENV = "UPWELL_CONFIG"
+_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
+_DURATION = re.compile(r"^(?:(\d+)h)?(?:(\d+)m)?(?:(\d+(?:\.\d+)?)s)?$")
+_CLOCK = re.compile(r"^([01]\d|2[0-3]):([0-5]\d)$")
+SOURCE_KINDS = ("folder",)
+
+
+def parse_duration(text: str) -> float:
+    """Seconds in ``"90s"``, ``"15m"``, ``"1h"`` or ``"1h30m"``; ValueError otherwise."""
+    match = _DURATION.match(text.strip())
+    if not text.strip() or not match or not any(match.groups()):
+        raise ValueError(f'{text!r} is not a duration such as "30s", "15m", "1h" or "1h30m"')
+    hours, minutes, seconds = match.groups()
+    total = int(hours or 0) * 3600 + int(minutes or 0) * 60 + float(seconds or 0)
+    if total <= 0:
+        raise ValueError(f"{text!r} is not a positive duration")
+    return total
+
+
+@dataclass(frozen=True)
+class SourceConfig:
+    """One ``[[source]]`` table: a folder, whether it is watched, and its scan schedule."""
+
+    name: str
+    path: Path
+    kind: str = "folder"
+    watch: bool = True
+    every: float | None = None  # seconds between scheduled full scans; None: none
+    include: tuple[str, ...] = ("**/*",)
+    exclude: tuple[str, ...] = DEFAULT_EXCLUDE
+
+    def folder_source(self) -> FolderSource:
+        """The connector the engine syncs; only files with a known format are listed."""
+        return FolderSource(
+            name=self.name,
+            root=self.path,
+            include=self.include,
+            exclude=self.exclude,
+            accept=lambda key: formats.media_type_for(key) is not None,
+        )
+
+
+@dataclass(frozen=True)
+class ServerConfig:
+    """``[server]``: where the HTTP API listens and which variable holds its bearer token."""
+
+    host: str = "127.0.0.1"
+    port: int = 8765
+    token_env: str | None = None
+
+    @property
+    def loopback(self) -> bool:
+        return _is_loopback(self.host)
+
+
+@dataclass(frozen=True)
+class ServiceConfig:
+    """``[service]``: timings of ``upwell watch``."""
+
+    settle_seconds: float = 1.0  # a file is read once size and mtime stayed still this long
+    batch_seconds: float = 0.2  # after the first settled file, gather more for this long
+    batch_documents: int = 50  # documents per commit; bounds the work a stop has to wait for
+    reconcile_every: float = 3600.0
+    maintenance_at: str = "03:30"  # local time, HH:MM
+    paused: bool = False  # true: take events, write nothing until unpaused (SIGHUP)
+    keep_days: float = 30.0  # nightly maintenance keeps versions this many days (tagged: always)
+
+
+@dataclass(frozen=True)
+class Config:
+    """A whole configuration file, validated."""
+
+    file: Path | None
+    index_path: Path | None = None
+    model: str | None = None
+    server: ServerConfig = field(default_factory=ServerConfig)
+    service: ServiceConfig = field(default_factory=ServiceConfig)
+    sources: tuple[SourceConfig, ...] = ()
+
+    def source(self, name: str) -> SourceConfig:
+        for s in self.sources:
+            if s.name == name:
+                return s
+        known = ", ".join(s.name for s in self.sources) or "none"
+        raise UsageError(f"no source named {name!r} in {self.file} (configured: {known})")
+
+
+def config_path_from(option: str | None) -> Path | None:
+    """The file named by ``--config``, else by $UPWELL_CONFIG, else None."""
+    text = option or os.environ.get(CONFIG_ENV)
+    return Path(text).expanduser() if text else None
+
+
+def load_config(path: str | os.PathLike[str]) -> Config:
+    """Read and validate a configuration file; UsageError with one line naming the key."""
+    file = Path(path)
+    try:
+        raw = tomllib.loads(file.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise UsageError(f"config {file}: no such file (`upwell init {file}` writes one)") from None
+    except OSError as exc:
+        raise UsageError(f"config {file}: cannot read it: {exc.strerror or exc}") from None
+    except UnicodeDecodeError:
+        raise UsageError(f"config {file}: not UTF-8 text") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise UsageError(f"config {file}: not valid TOML: {exc}") from None
+    return parse_config(raw, file)
+
+
+def parse_config(raw: Mapping[str, Any], file: Path | None = None) -> Config:
+    """Validate an already-parsed TOML document; relative paths are taken from the file's folder."""
+    check = _Checker(file)
+    base = file.parent if file is not None else Path.cwd()
+    check.only_keys("", raw, ("index", "server", "service", "source"))
+
+    index = check.table("index", raw.get("index", {}))
+    check.only_keys("index", index, ("path", "model"))
+    index_path = None
+    if "path" in index:
+        index_path = _resolve(base, check.string("index.path", index["path"]))
+    model = check.string("index.model", index["model"]) if "model" in index else None
+
+    server = _parse_server(check, check.table("server", raw.get("server", {})))
+    service = _parse_service(check, check.table("service", raw.get("service", {})))
+
+    sources_raw = raw.get("source", [])
+    if not isinstance(sources_raw, list):
+        check.fail("source", "must be an array of tables, written [[source]]")
+    sources = []
+    for n, item in enumerate(sources_raw):
+        sources.append(
+            _parse_source(check, f"source[{n}]", check.table(f"source[{n}]", item), base)
+        )
+    names = [s.name for s in sources]
+    for n, name in enumerate(names):
+        if name in names[:n]:
+            check.fail(f"source[{n}].name", f"{name!r} is used by two sources")
+    return Config(
+        file=file,
+        index_path=index_path,
+        model=model,
+        server=server,
+        service=service,
+        sources=tuple(sources),
+    )
+
+
+def _parse_server(check: _Checker, table: Mapping[str, Any]) -> ServerConfig:
+    check.only_keys("server", table, ("listen", "token_env"))
+    host, port = ServerConfig.host, ServerConfig.port
+    if "listen" in table:
+        listen = check.string("server.listen", table["listen"])
+        host, sep, port_text = listen.rpartition(":")
+        host = host.strip("[]")
+        if not sep or not host or not port_text.isdigit() or int(port_text) > 65535:
+            check.fail("server.listen", f'{listen!r} is not HOST:PORT, such as "127.0.0.1:8765"')
+        port = int(port_text)
+    token_env = (
+        check.string("server.token_env", table["token_env"]) if "token_env" in table else None
+    )
+    if not _is_loopback(host) and not token_env:
+        check.fail(
+            "server.listen",
+            f"{host} is not a loopback address; set server.token_env to the name of an "
+            "environment variable holding the bearer token",
+        )
+    return ServerConfig(host=host, port=port, token_env=token_env)
+
+
+def _parse_service(check: _Checker, table: Mapping[str, Any]) -> ServiceConfig:
+    keys = (
+        "settle",
+        "batch_window",
+        "batch_documents",
+        "reconcile_every",
+        "maintenance_at",
+        "paused",
+        "keep_days",
+    )
+    check.only_keys("service", table, keys)
+    d = ServiceConfig()
+    settle = check.duration("service.settle", table["settle"]) if "settle" in table else None
+    window = (
+        check.duration("service.batch_window", table["batch_window"])
+        if "batch_window" in table
+        else None
+    )
+    batch = d.batch_documents
+    if "batch_documents" in table:
+        batch = check.integer("service.batch_documents", table["batch_documents"], minimum=1)
+    reconcile = (
+        check.duration("service.reconcile_every", table["reconcile_every"])
+        if "reconcile_every" in table
+        else None
+    )
+    at = d.maintenance_at
+    if "maintenance_at" in table:
+        at = check.string("service.maintenance_at", table["maintenance_at"])
+        if not _CLOCK.match(at):
+            check.fail("service.maintenance_at", f'{at!r} is not a time of day such as "03:30"')
+    paused = check.boolean("service.paused", table["paused"]) if "paused" in table else False
+    keep = d.keep_days
+    if "keep_days" in table:
+        keep = check.integer("service.keep_days", table["keep_days"], minimum=1)
+    return ServiceConfig(
+        settle_seconds=settle if settle is not None else d.settle_seconds,
+        batch_seconds=window if window is not None else d.batch_seconds,
+        batch_documents=batch,
+        reconcile_every=reconcile if reconcile is not None else d.reconcile_every,
+        maintenance_at=at,
+        paused=paused,
+        keep_days=float(keep),
+    )
+
+
+def _parse_source(
+    check: _Checker, where: str, table: Mapping[str, Any], base: Path
+) -> SourceConfig:
+    check.only_keys(where, table, ("name", "kind", "path", "watch", "every", "include", "exclude"))
+    for key in ("name", "path"):
+        if key not in table:
+            check.fail(f"{where}.{key}", "is required")
+    name = check.string(f"{where}.name", table["name"])
+    if not _NAME.match(name):
+        check.fail(
+            f"{where}.name",
+            f"{name!r} must be letters, digits, '.', '_' or '-', not starting with punctuation",
+        )
+    where = f"source {name!r}"
+    kind = check.string(f"{where}.kind", table.get("kind", "folder"))
+    if kind not in SOURCE_KINDS:
+        check.fail(f"{where}.kind", f"{kind!r} is not a known kind ({', '.join(SOURCE_KINDS)})")
+    return SourceConfig(
+        name=name,
+        kind=kind,
+        path=_resolve(base, check.string(f"{where}.path", table["path"])),
+        watch=check.boolean(f"{where}.watch", table["watch"]) if "watch" in table else True,
+        every=check.duration(f"{where}.every", table["every"]) if "every" in table else None,
+        include=check.patterns(f"{where}.include", table.get("include", ["**/*"])),
+        # Configured excludes add to the defaults: editor and office temp files stay ignored.
+        exclude=DEFAULT_EXCLUDE
+        + tuple(
+            p
+            for p in check.patterns(f"{where}.exclude", table.get("exclude", []))
+            if p not in DEFAULT_EXCLUDE
+        ),
+    )
+
+
+def _resolve(base: Path, text: str) -> Path:
+    path = Path(text).expanduser()
+    return (path if path.is_absolute() else base / path).resolve()
+
+
+def _is_loopback(host: str) -> bool:
+    if host == "localhost":
+        return True
+    try:
+        return ipaddress.ip_address(host).is_loopback
+    except ValueError:
+        return False
+
+
+class _Checker:
+    """Type checks that fail with ``config FILE: KEY: what is wrong``."""
+
+    def __init__(self, file: Path | None) -> None:
+        self.file = file
+
+    def fail(self, key: str, problem: str) -> Any:
+        prefix = f"config {self.file}: " if self.file else "config: "
+        raise UsageError(f"{prefix}{key}: {problem}")
+
+    def only_keys(self, where: str, table: Mapping[str, Any], known: tuple[str, ...]) -> None:
+        for key in table:
+            if key not in known:
+                name = f"{where}.{key}" if where else key
+                self.fail(name, f"unknown key (known here: {', '.join(known)})")
+
+    def table(self, key: str, value: Any) -> Mapping[str, Any]:
+        if not isinstance(value, dict):
+            self.fail(key, f"must be a table, not {_kind(value)}")
+        return value
+
+    def string(self, key: str, value: Any) -> str:
+        if not isinstance(value, str) or not value.strip():
+            self.fail(key, f"must be a non-empty string, not {_kind(value)}")
+        return value
+
+    def boolean(self, key: str, value: Any) -> bool:
+        if not isinstance(value, bool):
+            self.fail(key, f"must be true or false, not {_kind(value)}")
+        return value
+
+    def integer(self, key: str, value: Any, minimum: int) -> int:
+        if isinstance(value, bool) or not isinstance(value, int) or value < minimum:
+            self.fail(key, f"must be a whole number of at least {minimum}, not {value!r}")
+        return value
+
+    def duration(self, key: str, value: Any) -> float:
+        return self._converted(key, value, parse_duration)
+
+    def patterns(self, key: str, value: Any) -> tuple[str, ...]:
+        if not isinstance(value, list) or not all(isinstance(p, str) and p for p in value):
+            self.fail(key, f'must be a list of glob patterns such as ["**/*.md"], not {value!r}')
+        return tuple(value)
+
+    def _converted(self, key: str, value: Any, convert: Callable[[str], float]) -> float:
+        if not isinstance(value, str):
+            self.fail(key, f'must be a string such as "15m", not {_kind(value)}')
+        try:
+            return convert(value)
+        except ValueError as exc:
+            return self.fail(key, str(exc))
+
+
+def _kind(value: Any) -> str:
+    return {
+        bool: "a boolean",
+        int: "a number",
+        float: "a number",
+        str: "a string",
+        list: "a list",
+        dict: "a table",
+    }.get(type(value), type(value).__name__)
+
+
+STARTER_TEXT = """\
+# upwell configuration. Every command reads it with --config FILE (or $UPWELL_CONFIG).
+# Relative paths are taken from the folder this file is in.
+
+[index]
+# The index folder: LanceDB tables, history and the writer lock.
+path = "index"
+# Embedding model for a new index; an existing index keeps the model it was built with.
+# model = "default"
+
+[server]
+# Where `upwell watch` serves /healthz, /status, /search and /metrics. A non-loopback address
+# needs token_env: the name of an environment variable holding the bearer token.
+listen = "127.0.0.1:8765"
+# token_env = "UPWELL_TOKEN"
+
+[service]
+# settle = "1s"            # a file is read once its size and mtime stayed still this long
+# batch_window = "0.2s"    # after the first settled file, gather more for this long
+# batch_documents = 50     # documents per commit
+# reconcile_every = "1h"   # full rescan of every source, repairing missed events
+# maintenance_at = "03:30" # local time of the nightly maintenance
+# paused = false           # true: keep watching, write nothing (reload with SIGHUP)
+# keep_days = 30           # maintenance removes older versions (tagged ones are kept)
+
+# One [[source]] per folder. Names appear in search results and must stay stable.
+[[source]]
+name = "handbook"
+kind = "folder"
+path = "/srv/share/handbook"
+watch = true                 # false: scanned on the schedule only
+every = "15m"                # a full scan of this source on a schedule
+include = ["**/*"]
+exclude = ["**/drafts/**"]   # added to the built-in editor and office temp-file patterns
+"""

@@ -1,0 +1,567 @@
+"""Version history: commits, refs, diffs, tags, rollback, and keeping old versions in check.
+
+The ``commits`` table is upwell's log: one row per commit with UTC time, counts, and the version
+of the chunks, documents and tombstones tables after it. LanceDB keeps every table version; this
+module maps between the two. LanceDB only looks versions up by number or tag (its own version
+list has naive local timestamps), so every lookup by time goes through the commits log.
+
+A REF, everywhere, is one of: a tag; a chunks-table version number (``12`` or ``v12``); a commit
+id or an unambiguous prefix of one (4 characters or more); an ISO-8601 time, meaning the last
+commit at or before it (a time without a zone is UTC).
+"""
+
+from __future__ import annotations
+
+import json
+import re
+from dataclasses import dataclass, field
+from datetime import UTC, datetime, timedelta
+from typing import Any
+
+from .errors import StoreError, UnknownVersion, UsageError
+from .store import Store
+
+TAG_NAME = re.compile(r"^[A-Za-z][A-Za-z0-9._-]{0,63}$")
+INTERNAL_TAG_PREFIX = "upwell-"
+PAUSE_TAG = "upwell-paused-before"
+
+
+@dataclass(frozen=True)
+class Commit:
+    """One row of the commits log."""
+
+    id: str
+    time: str
+    trigger: str
+    version: int  # of the chunks table
+    documents_version: int
+    tombstones_version: int
+    sources: tuple[str, ...]
+    documents: dict[str, int]
+    chunks: dict[str, int]
+    seconds: float
+    changes: dict[str, Any] = field(default_factory=dict)
+
+    @classmethod
+    def from_row(cls, row: dict[str, Any]) -> Commit:
+        return cls(
+            id=row["commit_id"],
+            time=row["time"],
+            trigger=row["trigger"],
+            version=int(row["chunks_version"]),
+            documents_version=int(row["documents_version"]),
+            tombstones_version=int(row["tombstones_version"]),
+            sources=tuple(json.loads(row["sources"] or "[]")),
+            documents={
+                k: int(row[f"documents_{k}"] or 0)
+                for k in ("added", "modified", "removed", "moved", "unchanged", "failed")
+            },
+            chunks={
+                k: int(row[f"chunks_{k}"] or 0) for k in ("embedded", "reused", "added", "deleted")
+            },
+            seconds=float(row["seconds"] or 0.0),
+            changes=json.loads(row["changes"] or "{}"),
+        )
+
+    @property
+    def when(self) -> datetime:
+        return parse_time(self.time)
+
+    def as_dict(self) -> dict[str, Any]:
+        return {
+            "id": self.id,
+            "version": self.version,
+            "time": self.time,
+            "trigger": self.trigger,
+            "sources": list(self.sources),
+            "documents": dict(self.documents),
+            "chunks": dict(self.chunks),
+            "seconds": round(self.seconds, 3),
+        }
+
+
+def parse_time(text: str) -> datetime:
+    """An ISO-8601 time as an aware UTC datetime; a time without a zone is taken as UTC."""
+    value = text.strip()
+    if value.endswith(("Z", "z")):
+        value = value[:-1] + "+00:00"
+    when = datetime.fromisoformat(value)
+    if when.tzinfo is None:
+        when = when.replace(tzinfo=UTC)
+    return when.astimezone(UTC)
+
+
+def commits(store: Store) -> list[Commit]:
+    """Every commit, oldest first (the log's own order: time, then id)."""
+    rows = store.commits()
+    rows.sort(key=lambda r: (r["time"], r["commit_id"]))
+    return [Commit.from_row(r) for r in rows]
+
+
+# --- refs --------------------------------------------------------------------------------------
+
+
+def tags(store: Store) -> dict[str, str]:
+    """User tags: name -> commit id."""
+    return dict(store.settings().get("tags", {}))
+
+
+def resolve(store: Store, ref: str, log: list[Commit] | None = None) -> Commit:
+    """The commit a REF names; UnknownVersion (one line, listing the nearest refs) if none."""
+    log = commits(store) if log is None else log
+    text = ref.strip()
+    if not log:
+        raise UnknownVersion(f"unknown ref {ref!r}: the index has no commits yet")
+    by_id = {c.id: c for c in log}
+    named = tags(store)
+    if text in named:
+        commit = by_id.get(named[text])
+        if commit is None:
+            raise UnknownVersion(f"tag {text!r} names commit {named[text]} which is not in the log")
+        return commit
+    version = re.fullmatch(r"v?(\d{1,7})", text)
+    if version:
+        number = int(version.group(1))
+        at_or_before = [c for c in log if c.version <= number]
+        if at_or_before and number <= log[-1].version:
+            # The last commit whose chunks version is at or before the number asked for.
+            return max(at_or_before, key=lambda c: (c.version, c.time))
+    if re.fullmatch(r"[0-9a-fA-F]{4,}", text):
+        matches = [c for c in log if c.id.startswith(text.lower())]
+        if len(matches) == 1:
+            return matches[0]
+        if len(matches) > 1:
+            listed = ", ".join(f"{c.id} ({c.time})" for c in matches[:5])
+            raise UnknownVersion(
+                f"ref {ref!r} is ambiguous: it starts {len(matches)} commit ids: {listed}"
+            )
+    try:
+        when = parse_time(text)
+    except ValueError:
+        when = None
+    if when is not None:
+        before = [c for c in log if c.when <= when]
+        if before:
+            return before[-1]
+        raise UnknownVersion(
+            f"no commit at or before {when.isoformat()}: the first commit is {log[0].id} "
+            f"at {log[0].time}"
+        )
+    recent = ", ".join(f"{c.id[:12]} (v{c.version}, {c.time})" for c in reversed(log[-3:]))
+    tag_list = ", ".join(sorted(named)) or "none"
+    raise UnknownVersion(
+        f"unknown ref {ref!r}: not a tag, version, commit id or ISO-8601 time; "
+        f"latest commits: {recent}; tags: {tag_list}"
+    )
+
+
+def parent(log: list[Commit], commit: Commit) -> Commit | None:
+    position = [c.id for c in log].index(commit.id)
+    return log[position - 1] if position > 0 else None
+
+
+# --- reading a table as it was -----------------------------------------------------------------
+
+
+def dataset_at(store: Store, table: str, version: int) -> Any:
+    """The Lance dataset of ``table`` at ``version``; UnknownVersion if retention removed it."""
+    try:
+        return store.table(table).to_lance().checkout_version(version)
+    except (ValueError, RuntimeError, OSError) as exc:
+        raise UnknownVersion(
+            f"version {version} of the {table} table is no longer stored (removed by `upwell "
+            f"maintain` retention or by an erasure): {_first_line(exc)}"
+        ) from None
+
+
+def documents_at(store: Store, version: int) -> dict[str, dict[str, Any]]:
+    """doc_id -> {path, source, content_hash, status} of the documents table at a version."""
+    ds = dataset_at(store, "documents", version)
+    rows = ds.to_table(columns=["doc_id", "source", "path", "content_hash", "status"]).to_pylist()
+    return {r["doc_id"]: r for r in rows if r["content_hash"]}
+
+
+def chunk_ids_at(store: Store, version: int) -> dict[str, str]:
+    """chunk_id -> doc_id of the chunks table at a version."""
+    ds = dataset_at(store, "chunks", version)
+    table = ds.to_table(columns=["chunk_id", "doc_id"])
+    return dict(zip(table["chunk_id"].to_pylist(), table["doc_id"].to_pylist(), strict=True))
+
+
+@dataclass(frozen=True)
+class Diff:
+    """Documents and chunks added, changed and removed from ``base`` to ``head``."""
+
+    base: Commit | None
+    head: Commit
+    added: tuple[str, ...]
+    modified: tuple[str, ...]
+    removed: tuple[str, ...]
+    moved: tuple[tuple[str, str], ...]
+    chunks_added: int
+    chunks_removed: int
+
+    def as_dict(self) -> dict[str, Any]:
+        return {
+            "from": self.base.as_dict() if self.base else None,
+            "to": self.head.as_dict(),
+            "documents": {
+                "added": list(self.added),
+                "modified": list(self.modified),
+                "removed": list(self.removed),
+                "moved": [{"from": a, "to": b} for a, b in self.moved],
+            },
+            "counts": {
+                "documents": {
+                    "added": len(self.added),
+                    "modified": len(self.modified),
+                    "removed": len(self.removed),
+                    "moved": len(self.moved),
+                },
+                "chunks": {"added": self.chunks_added, "removed": self.chunks_removed},
+            },
+        }
+
+
+def diff_states(
+    before_docs: dict[str, dict[str, Any]],
+    after_docs: dict[str, dict[str, Any]],
+    before_chunks: dict[str, str],
+    after_chunks: dict[str, str],
+    base: Commit | None,
+    head: Commit,
+) -> Diff:
+    """Pure: compare two states. A removal and an addition of the same content is a move."""
+    added = [d for d in after_docs if d not in before_docs]
+    removed = [d for d in before_docs if d not in after_docs]
+    modified = [
+        d
+        for d in after_docs
+        if d in before_docs and after_docs[d]["content_hash"] != before_docs[d]["content_hash"]
+    ]
+    moved = []
+    by_hash = {before_docs[d]["content_hash"]: d for d in removed}
+    for d in list(added):
+        source = by_hash.pop(after_docs[d]["content_hash"], None)
+        if source is not None:
+            moved.append((source, d))
+            added.remove(d)
+            removed.remove(source)
+    return Diff(
+        base=base,
+        head=head,
+        added=tuple(sorted(added)),
+        modified=tuple(sorted(modified)),
+        removed=tuple(sorted(removed)),
+        moved=tuple(sorted(moved)),
+        chunks_added=len(after_chunks.keys() - before_chunks.keys()),
+        chunks_removed=len(before_chunks.keys() - after_chunks.keys()),
+    )
+
+
+def diff(store: Store, base: Commit | None, head: Commit) -> Diff:
+    before_docs = documents_at(store, base.documents_version) if base else {}
+    before_chunks = chunk_ids_at(store, base.version) if base else {}
+    return diff_states(
+        before_docs,
+        documents_at(store, head.documents_version),
+        before_chunks,
+        chunk_ids_at(store, head.version),
+        base,
+        head,
+    )
+
+
+# --- tags --------------------------------------------------------------------------------------
+
+_TAGGED_TABLES = ("chunks", "documents")
+
+
+def create_tag(store: Store, name: str, commit: Commit) -> None:
+    """Name a commit. The tag also pins its table versions, so retention never removes them."""
+    if not TAG_NAME.match(name) or name.startswith(INTERNAL_TAG_PREFIX):
+        raise UsageError(
+            f"tag name {name!r} is not allowed: use a letter, then letters, digits, '.', '_' or "
+            f"'-' (at most 64), not starting with {INTERNAL_TAG_PREFIX!r}"
+        )
+    existing = tags(store)
+    if name in existing:
+        raise UsageError(f"tag {name!r} already names commit {existing[name]}; untag it first")
+    _pin(store, name, commit)
+    existing[name] = commit.id
+    store.update_setting("tags", existing)
+
+
+def delete_tag(store: Store, name: str) -> str:
+    existing = tags(store)
+    if name not in existing:
+        raise UnknownVersion(f"no tag {name!r}; tags: {', '.join(sorted(existing)) or 'none'}")
+    commit_id = existing.pop(name)
+    _unpin(store, name)
+    store.update_setting("tags", existing)
+    return commit_id
+
+
+def _pin(store: Store, name: str, commit: Commit) -> None:
+    versions = {"chunks": commit.version, "documents": commit.documents_version}
+    for table in _TAGGED_TABLES:
+        lance_tags = store.table(table).tags
+        if name in lance_tags.list():
+            lance_tags.delete(name)
+        try:
+            lance_tags.create(name, versions[table])
+        except (ValueError, RuntimeError, OSError) as exc:
+            raise StoreError(
+                f"cannot tag {table} version {versions[table]}: {_first_line(exc)}"
+            ) from None
+
+
+def _unpin(store: Store, name: str) -> None:
+    for table in _TAGGED_TABLES:
+        lance_tags = store.table(table).tags
+        if name in lance_tags.list():
+            lance_tags.delete(name)
+
+
+# --- rollback ----------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class RollbackPlan:
+    """What a rollback to ``target`` would change in what is searchable."""
+
+    target: Commit
+    current: Commit
+    come_back: tuple[str, ...]
+    go_away: tuple[str, ...]
+    change: tuple[str, ...]
+
+    def describe(self) -> str:
+        def names(ids: tuple[str, ...]) -> str:
+            shown = ", ".join(ids[:5])
+            return shown + (f" and {len(ids) - 5} more" if len(ids) > 5 else "")
+
+        lines = [
+            f"Rolling back to commit {self.target.id} (version {self.target.version}, "
+            f"{self.target.time}) from {self.current.id} (version {self.current.version}).",
+            f"  {len(self.come_back)} documents come back"
+            + (f": {names(self.come_back)}" if self.come_back else ""),
+            f"  {len(self.go_away)} documents go away"
+            + (f": {names(self.go_away)}" if self.go_away else ""),
+            f"  {len(self.change)} documents change"
+            + (f": {names(self.change)}" if self.change else ""),
+            "The current state stays in history: this rollback can itself be rolled back.",
+        ]
+        return "\n".join(lines)
+
+    def as_dict(self) -> dict[str, Any]:
+        return {
+            "target": self.target.as_dict(),
+            "current": self.current.as_dict(),
+            "documents": {
+                "come_back": list(self.come_back),
+                "go_away": list(self.go_away),
+                "change": list(self.change),
+            },
+        }
+
+
+def plan_rollback(store: Store, target: Commit, current: Commit) -> RollbackPlan:
+    before = documents_at(store, current.documents_version)
+    after = documents_at(store, target.documents_version)
+    dataset_at(store, "chunks", target.version)  # fail now, not half-way, if it is gone
+    return RollbackPlan(
+        target=target,
+        current=current,
+        come_back=tuple(sorted(d for d in after if d not in before)),
+        go_away=tuple(sorted(d for d in before if d not in after)),
+        change=tuple(
+            sorted(
+                d
+                for d in after
+                if d in before and after[d]["content_hash"] != before[d]["content_hash"]
+            )
+        ),
+    )
+
+
+PENDING_ROLLBACK = "pending_rollback"
+PAUSED = "paused"
+
+
+def start_rollback(store: Store, plan: RollbackPlan, commit_id: str, now: str, pause: bool) -> None:
+    """Record the intent, then carry it out. The intent makes an interrupted rollback finishable:
+    the next writer to open the index completes it (``complete_pending``)."""
+    versions = store.versions()
+    intent = {
+        "commit_id": commit_id,
+        "time": now,
+        "target": plan.target.id,
+        "target_chunks_version": plan.target.version,
+        "target_documents_version": plan.target.documents_version,
+        "chunks_before": versions["chunks"],
+        "documents_before": versions["documents"],
+        "from_commit": plan.current.id,
+        "go_away": list(plan.go_away),
+        "come_back": list(plan.come_back),
+        "change": list(plan.change),
+        "pause": pause,
+    }
+    store.update_setting(PENDING_ROLLBACK, intent)
+    finish_rollback(store, intent)
+
+
+def complete_pending(store: Store) -> dict[str, Any] | None:
+    """Finish a rollback that a crash interrupted; returns its intent, or None if none was."""
+    intent = store.settings().get(PENDING_ROLLBACK)
+    if intent:
+        finish_rollback(store, intent)
+    return intent or None
+
+
+def finish_rollback(store: Store, intent: dict[str, Any]) -> None:
+    """Idempotent: each step checks whether it already happened (one writer at a time)."""
+    # Chunks first: they are what readers search.
+    for table, key in (("chunks", "chunks_before"), ("documents", "documents_before")):
+        handle = store.table(table)
+        handle.checkout_latest()
+        if int(handle.version) == int(intent[key]):
+            try:
+                handle.restore(int(intent[f"target_{table}_version"]))
+            except (ValueError, RuntimeError, OSError) as exc:
+                raise StoreError(f"cannot restore {table}: {_first_line(exc)}") from None
+    removed_at = intent["time"]
+    tombstones = []
+    before = documents_at(store, int(intent["documents_before"]))
+    for doc_id in intent["go_away"]:
+        row = before.get(doc_id)
+        if row is None:
+            continue
+        tombstones.append(
+            {
+                "tombstone_id": _rollback_tombstone_id(doc_id, intent["commit_id"]),
+                "doc_id": doc_id,
+                "source": row["source"],
+                "path": row["path"],
+                "content_hash": row["content_hash"],
+                "removed_at": removed_at,
+                "reason": "rolled back",
+                "detail": json.dumps({"rollback_to": intent["target"]}),
+                "chunk_count": None,
+                "chunks_version": int(store.table("chunks").version),
+                "commit_id": intent["commit_id"],
+            }
+        )
+    store.add_tombstones(tombstones)
+    if not any(c["commit_id"] == intent["commit_id"] for c in store.commits()):
+        versions = store.versions()
+        before_chunks = chunk_ids_at(store, int(intent["chunks_before"]))
+        after_chunks = chunk_ids_at(store, versions["chunks"])
+        store.add_commit(
+            {
+                "commit_id": intent["commit_id"],
+                "time": intent["time"],
+                "trigger": f"rollback to {intent['target']}",
+                "sources": json.dumps([]),
+                "documents_added": len(intent["come_back"]),
+                "documents_modified": len(intent["change"]),
+                "documents_removed": len(intent["go_away"]),
+                "documents_moved": 0,
+                "documents_unchanged": 0,
+                "documents_failed": 0,
+                "chunks_embedded": 0,
+                "chunks_reused": 0,
+                "chunks_added": len(after_chunks.keys() - before_chunks.keys()),
+                "chunks_deleted": len(before_chunks.keys() - after_chunks.keys()),
+                "seconds": 0.0,
+                "chunks_version": versions["chunks"],
+                "documents_version": versions["documents"],
+                "tombstones_version": versions["tombstones"],
+                "changes": json.dumps(
+                    {
+                        "added": intent["come_back"],
+                        "modified": intent["change"],
+                        "removed": intent["go_away"],
+                        "rollback_to": intent["target"],
+                    }
+                ),
+            }
+        )
+    if intent.get("pause"):
+        pause = {
+            "since": intent["time"],
+            "commit": intent["commit_id"],
+            "rollback_to": intent["target"],
+            "before_chunks_version": int(intent["chunks_before"]),
+            "before_documents_version": int(intent["documents_before"]),
+        }
+        # Keep the state the rollback replaced until the pause is lifted, whatever retention says.
+        for table, key in (("chunks", "chunks_before"), ("documents", "documents_before")):
+            lance_tags = store.table(table).tags
+            if PAUSE_TAG in lance_tags.list():
+                lance_tags.delete(PAUSE_TAG)
+            lance_tags.create(PAUSE_TAG, int(intent[key]))
+        store.update_setting(PAUSED, pause)
+    store.update_setting(PENDING_ROLLBACK, None)
+
+
+def resume(store: Store) -> dict[str, Any] | None:
+    """Lift a pause; returns what it was, or None if syncing was not paused."""
+    paused = store.settings().get(PAUSED)
+    if not paused:
+        return None
+    for table in _TAGGED_TABLES:
+        lance_tags = store.table(table).tags
+        if PAUSE_TAG in lance_tags.list():
+            lance_tags.delete(PAUSE_TAG)
+    store.update_setting(PAUSED, None)
+    return paused
+
+
+def _rollback_tombstone_id(doc_id: str, commit_id: str) -> str:
+    from .hashing import sha256_hex
+
+    return sha256_hex(f"{doc_id}\x00rollback\x00{commit_id}")[:32]
+
+
+# --- retention and compaction ------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class RetentionPlan:
+    """Versions older than the cut-off that retention would remove, per table."""
+
+    cutoff: datetime
+    commits_lost: tuple[Commit, ...]
+    protected: tuple[str, ...]
+
+    def describe(self) -> str:
+        if not self.commits_lost:
+            return f"No commit is older than {self.cutoff.isoformat(timespec='seconds')}."
+        first, last = self.commits_lost[0], self.commits_lost[-1]
+        return (
+            f"Retention removes the stored versions of {len(self.commits_lost)} commits older "
+            f"than {self.cutoff.isoformat(timespec='seconds')} ({first.id} at {first.time} to "
+            f"{last.id} at {last.time}): you will no longer be able to search as of them, diff "
+            "them or roll back to them. Kept whatever their age: "
+            + (", ".join(self.protected) if self.protected else "the latest version")
+            + "."
+        )
+
+
+def plan_retention(store: Store, keep: timedelta, now: datetime | None = None) -> RetentionPlan:
+    now = now or datetime.now(UTC)
+    cutoff = now - keep
+    log = commits(store)
+    named = tags(store)
+    pinned_ids = set(named.values())
+    paused = store.settings().get(PAUSED)
+    protected = [f"tag {n}" for n in sorted(named)]
+    if paused:
+        protected.append(f"the paused rollback {paused['commit']}")
+    lost = tuple(c for c in log[:-1] if c.when < cutoff and c.id not in pinned_ids)
+    return RetentionPlan(cutoff=cutoff, commits_lost=lost, protected=tuple(protected))
+
+
+def _first_line(exc: BaseException) -> str:
+    return str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__

@@ -1,0 +1,117 @@
+"""The ``init``, ``watch`` and ``verify`` commands: parse, call one function, print.
+
+``cli.build_parser`` calls ``register(sub)``; each command gets ``(args, index)`` like the others,
+and ``args.config`` holds the loaded ``Config`` (or None).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from pathlib import Path
+from typing import Any
+
+from .config import STARTER_TEXT, Config
+from .errors import UsageError
+from .index import Index
+from .service import Service, configure_logging
+from .verify import EXIT_CONSISTENT, EXIT_INCONSISTENT, repair_index, verify_index
+
+
+def _need_config(args: argparse.Namespace, command: str) -> Config:
+    config: Config | None = getattr(args, "config", None)
+    if config is None:
+        raise UsageError(
+            f"`upwell {command}` needs a configuration: --config FILE or $UPWELL_CONFIG "
+            "(`upwell init FILE` writes a starter file)"
+        )
+    return config
+
+
+def cmd_init(args: argparse.Namespace, index: Index) -> int:
+    target = Path(args.file)
+    if target.exists() and not args.force:
+        raise UsageError(f"{target} exists; pass --force to overwrite it")
+    target.write_text(STARTER_TEXT, encoding="utf-8")
+    print(f"wrote {target}: edit the [[source]] entries, then `upwell --config {target} watch`")
+    return 0
+
+
+def cmd_watch(args: argparse.Namespace, index: Index) -> int:
+    config = _need_config(args, "watch")
+    if not config.sources:
+        raise UsageError(f"config {config.file}: no [[source]] to watch")
+    configure_logging(args.log_format)
+    return Service(config, index).run()
+
+
+def cmd_verify(args: argparse.Namespace, index: Index) -> int:
+    config: Config | None = getattr(args, "config", None)
+    sources: Any = [s.folder_source() for s in config.sources] if config else None
+    if args.repair:
+        report = repair_index(index, sources, yes=args.yes)
+    else:
+        report = verify_index(index, sources, drift=not args.no_drift)
+    if args.json:
+        json.dump(report.as_dict(), sys.stdout, indent=2, ensure_ascii=False)
+        sys.stdout.write("\n")
+    else:
+        c = report.counted
+        print(
+            f"checked:   {c['documents']} documents, {c['chunks']} chunks, {c['commits']} "
+            f"commits, {c['tombstones']} tombstones"
+        )
+        if report.repaired:
+            print(f"repaired:  {len(report.repaired)} documents re-indexed")
+        for p in report.problems:
+            where = f"{p.doc_id}: " if p.doc_id else ""
+            print(f"{p.check}: {where}{p.detail}")
+        print("consistent" if report.consistent else f"{len(report.problems)} problems")
+    return EXIT_CONSISTENT if report.consistent else EXIT_INCONSISTENT
+
+
+def register(sub: Any, formatter_class: Any = argparse.HelpFormatter) -> None:
+    """Add ``init``, ``watch`` and ``verify`` to the ``upwell`` subcommand parser."""
+    p = sub.add_parser(
+        "init",
+        help="write a commented starter configuration file",
+        description="Write a TOML configuration with every key commented: the index folder, the "
+        "HTTP address, the service timings and one [[source]] to edit.",
+        epilog="example:\n  upwell init /etc/upwell/upwell.toml",
+        formatter_class=formatter_class,
+    )
+    p.add_argument("file", nargs="?", default="upwell.toml", metavar="FILE")
+    p.add_argument("--force", action="store_true", help="overwrite an existing file")
+    p.set_defaults(func=cmd_init, writes=False)
+
+    p = sub.add_parser(
+        "watch",
+        help="run as a service: watch the configured sources and keep the index current",
+        description="Watch every configured source, sync each change once the file has settled, "
+        "scan on the configured schedules, reconcile every source at start and hourly, and serve "
+        "/healthz, /status, /search and /metrics. Runs in the foreground until SIGTERM or SIGINT "
+        "(finishes the batch in hand, exits 0); SIGHUP reloads the configuration.",
+        epilog="example:\n  upwell --config /etc/upwell/upwell.toml watch --log-format json\n\n"
+        "exit codes: 0 stopped cleanly, 2 bad configuration, 4 another writer holds the index",
+        formatter_class=formatter_class,
+    )
+    p.set_defaults(func=cmd_watch, writes=True)
+
+    p = sub.add_parser(
+        "verify",
+        help="check the index for internal consistency and drift from the sources",
+        description="Check for duplicate chunk ids, chunks without a document, documents without "
+        "their chunks, vectors of the wrong dimension, gaps between the commit and tombstone "
+        "logs and the tables, and files changed since their last sync. --repair re-syncs and "
+        "re-indexes the affected documents (it needs the writer lock).",
+        epilog="examples:\n  upwell --config upwell.toml verify\n  upwell verify --repair --json"
+        "\n\nexit codes: 0 consistent, 5 problems found (after --repair: still found), "
+        "4 another writer holds the index (--repair)",
+        formatter_class=formatter_class,
+    )
+    p.add_argument("--repair", action="store_true", help="re-sync and re-index what is wrong")
+    p.add_argument("--no-drift", action="store_true", help="skip the comparison with sources")
+    p.add_argument("--yes", action="store_true", help="with --repair: do not ask before removals")
+    p.add_argument("--json", action="store_true", help="print the report as JSON")
+    p.set_defaults(func=cmd_verify, writes=False)

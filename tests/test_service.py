@@ -1,0 +1,563 @@
+"""``upwell watch`` as it runs under systemd: a real subprocess, real watchdog, real LanceDB,
+HTTP on 127.0.0.1 with an ephemeral port.
+
+Waits are bounded by generous deadlines so a slow shared machine fails loudly instead of hanging;
+no test asserts how long anything took (the save-to-searchable latency is measured and printed
+by ``test_save_to_searchable_latency_with_the_default_model``).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import random
+import re
+import shutil
+import signal
+import statistics
+import subprocess
+import sys
+import time
+import urllib.error
+import urllib.request
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Any
+
+import pytest
+from watchdog.observers import Observer
+
+from pipeline.config import SourceConfig, load_config
+from pipeline.index import Index
+from pipeline.service import SettleQueue, _SourceEvents
+from pipeline.verify import verify_index
+from tests.conftest import REPO, paragraph, write
+
+PY = sys.executable
+START_DEADLINE = 90.0  # the default model and lancedb load on a busy 2-core machine
+CHANGE_DEADLINE = 30.0  # the issue's target is 5 s; measured separately, never asserted here
+
+
+# --- helpers ---------------------------------------------------------------------------------
+
+
+def wait_for(what: str, condition: Callable[[], Any], deadline: float) -> Any:
+    end = time.monotonic() + deadline
+    while True:
+        value = condition()
+        if value:
+            return value
+        if time.monotonic() > end:
+            raise AssertionError(f"gave up waiting for {what}")
+        time.sleep(0.05)
+
+
+def make_config(
+    tmp: Path, sources: dict[str, Path], *, model: str = "hash", **service: Any
+) -> Path:
+    lines = [
+        "[index]",
+        f'path = "{tmp / "ix"}"',
+        f'model = "{model}"',
+        "[server]",
+        'listen = "127.0.0.1:0"',
+    ]
+    if "token_env" in service:
+        lines.append(f'token_env = "{service.pop("token_env")}"')
+    lines.append("[service]")
+    for key, value in service.items():
+        lines.append(f"{key} = {json.dumps(value)}")
+    for name, path in sources.items():
+        lines += ["[[source]]", f'name = "{name}"', f'path = "{path}"']
+    return write(tmp / "upwell.toml", "\n".join(lines) + "\n")
+
+
+class Watch:
+    """One ``upwell watch`` subprocess; always stopped by the fixture that made it."""
+
+    def __init__(
+        self, config: Path, log_path: Path, env: dict[str, str] | None = None, *extra: str
+    ):
+        self.config = config
+        self.log_path = log_path
+        self.log = open(log_path, "ab")  # noqa: SIM115 - closed in stop()
+        self.proc = subprocess.Popen(
+            [PY, "-m", "pipeline.cli", "--config", str(config), *extra, "watch"],
+            cwd=REPO,
+            stdout=self.log,
+            stderr=self.log,
+            env={**os.environ, **(env or {})},
+        )
+        self.port: int | None = None
+
+    def text(self) -> str:
+        return self.log_path.read_text(errors="replace")
+
+    def wait_listening(self) -> Watch:
+        def port() -> int | None:
+            if self.proc.poll() is not None:
+                raise AssertionError(f"watch exited with {self.proc.returncode}:\n{self.text()}")
+            found = re.findall(r"listening on http://127\.0\.0\.1:(\d+)", self.text())
+            return int(found[-1]) if found else None
+
+        self.port = wait_for("the service to listen", port, START_DEADLINE)
+        return self
+
+    def get(self, path: str, token: str | None = None) -> tuple[int, bytes]:
+        request = urllib.request.Request(f"http://127.0.0.1:{self.port}{path}")
+        if token:
+            request.add_header("Authorization", f"Bearer {token}")
+        try:
+            with urllib.request.urlopen(request, timeout=30) as response:
+                return response.status, response.read()
+        except urllib.error.HTTPError as exc:
+            return exc.code, exc.read()
+
+    def json(self, path: str) -> Any:
+        code, body = self.get(path)
+        assert code == 200, (code, body)
+        return json.loads(body)
+
+    def search_paths(self, q: str, k: int = 50) -> dict[str, str]:
+        """path -> text of every chunk returned (the test corpora are smaller than k)."""
+        results = self.json(f"/search?q={urllib.request.quote(q)}&k={k}")["results"]
+        out: dict[str, str] = {}
+        for r in results:
+            out[r["path"]] = out.get(r["path"], "") + r["text"]
+        return out
+
+    def metric(self, name: str, labels: str = "") -> float:
+        code, body = self.get("/metrics")
+        assert code == 200
+        # Prometheus text exposition format: `name{labels} value` per sample line.
+        pattern = re.escape(name + (f"{{{labels}}}" if labels else "")) + r" ([0-9.e+-]+)$"
+        match = re.search(pattern, body.decode(), re.M)
+        return float(match.group(1)) if match else 0.0
+
+    def commits_logged(self) -> int:
+        return len(re.findall(r" commit [0-9a-f]{20} ", self.text()))
+
+    def stop(self, sig: int = signal.SIGTERM, deadline: float = 30.0) -> int:
+        try:
+            if self.proc.poll() is None:
+                self.proc.send_signal(sig)
+            return self.proc.wait(timeout=deadline)
+        finally:
+            if self.proc.poll() is None:
+                self.proc.kill()
+                self.proc.wait(timeout=10)
+            self.log.close()
+
+
+@pytest.fixture
+def watches() -> Iterator[Callable[..., Watch]]:
+    started: list[Watch] = []
+
+    def start(config: Path, env: dict[str, str] | None = None, *extra: str) -> Watch:
+        w = Watch(config, config.parent / f"watch-{len(started)}.log", env, *extra)
+        started.append(w)
+        return w
+
+    yield start
+    for w in started:  # never leave a subprocess behind
+        if w.proc.poll() is None:
+            w.proc.kill()
+            w.proc.wait(timeout=10)
+        if not w.log.closed:
+            w.log.close()
+
+
+def upwell(*argv: str, cwd: Path = REPO) -> subprocess.CompletedProcess[str]:
+    return subprocess.run(
+        [PY, "-m", "pipeline.cli", *argv], cwd=cwd, capture_output=True, text=True, timeout=120
+    )
+
+
+def table_snapshot(index_path: Path) -> dict[str, Any]:
+    """What a clean build must equal: chunk ids and text hashes, document ids and content."""
+    store = Index(index_path).store()
+    store.refresh()
+    chunks = store.table("chunks").to_lance().to_table(columns=["chunk_id", "doc_id", "text_hash"])
+    docs = store.all_documents()
+    return {
+        "chunks": sorted(zip(*(chunks[c].to_pylist() for c in chunks.column_names), strict=True)),
+        "documents": sorted(
+            (d["doc_id"], d["content_hash"], d["status"], d["chunk_count"]) for d in docs
+        ),
+    }
+
+
+def tombstoned(index_path: Path) -> set[str]:
+    store = Index(index_path).store()
+    store.refresh()
+    return set(store.table("tombstones").to_lance().to_table()["doc_id"].to_pylist())
+
+
+def clean_build(tmp: Path, config: Path) -> Path:
+    """Index the sources of ``config`` as they are now, in a fresh index, in this process."""
+    target = tmp / "clean-ix"
+    shutil.rmtree(target, ignore_errors=True)
+    sources = [s.folder_source() for s in load_config(config).sources]
+    Index(target, model="hash").sync(sources, yes=True)
+    return target
+
+
+# --- in-process: the event shapes watchdog 7 produces here ------------------------------------
+
+
+@contextmanager
+def watching(root: Path, settle: float) -> Iterator[SettleQueue]:
+    queue = SettleQueue(settle)
+    source = SourceConfig(name="share", path=root.resolve())
+    observer = Observer()
+    observer.schedule(_SourceEvents(source, queue, lambda: None), str(root), recursive=True)
+    observer.start()
+    try:
+        yield queue
+    finally:
+        observer.stop()
+        observer.join(timeout=5)
+
+
+def settled_paths(queue: SettleQueue, root: Path, want: set[str]) -> set[str]:
+    got: set[str] = set()
+
+    def done() -> bool:
+        for _, path in queue.settled():
+            got.add(path.resolve().relative_to(root.resolve()).as_posix())
+        return want <= got
+
+    wait_for(f"settled paths {sorted(want - got)}", done, CHANGE_DEADLINE)
+    return got
+
+
+def test_every_event_shape_reaches_the_settle_queue(tmp_path):
+    root = tmp_path / "share"
+    outside = tmp_path / "outside"
+    write(root / "manual.md", "# Manual\n\nOriginal text.\n")
+    write(root / "policy.md", "# Policy\n\nOriginal.\n")
+    write(root / "leaving.md", "# Leaving\n\nSoon outside.\n")
+    write(outside / "arriving.md", "# Arriving\n\nFrom outside.\n")
+    write(outside / "folder" / "a.md", "# A\n")
+    write(outside / "folder" / "sub" / "b.md", "# B\n")
+    with watching(root, settle=0.3) as queue:
+        time.sleep(0.3)  # the observer is scheduled before the first change
+        # an editor's save: write a temp file, rename it over the original
+        write(root / ".manual.md.swp", "# Manual\n\nEdited text.\n")
+        os.replace(root / ".manual.md.swp", root / "manual.md")
+        # cp over an existing file (no created event)
+        shutil.copyfile(outside / "arriving.md", root / "policy.md")
+        # mv into the tree (created only), mv out of it (deleted, late), a folder moved in
+        os.rename(outside / "arriving.md", root / "arriving.md")
+        os.rename(root / "leaving.md", outside / "leaving.md")
+        os.rename(outside / "folder", root / "folder")
+        got = settled_paths(
+            queue,
+            root,
+            {
+                "manual.md",
+                "policy.md",
+                "arriving.md",
+                "leaving.md",
+                "folder/a.md",
+                "folder/sub/b.md",
+            },
+        )
+    # editor temp files are ignored by the default patterns
+    assert ".manual.md.swp" not in got
+
+
+def test_a_file_written_slowly_settles_once_after_its_last_write(tmp_path):
+    root = tmp_path / "share"
+    root.mkdir()
+    with watching(root, settle=0.5) as queue:
+        time.sleep(0.3)
+        with open(root / "big.txt", "wb") as fh:
+            for _ in range(256):  # 1 MB in 4 KB writes: hundreds of modified events
+                fh.write(b"spoke tension " * 292 + b"\n")
+                fh.flush()
+        ready: list[tuple[str, Path]] = []
+        wait_for("big.txt to settle", lambda: ready.extend(queue.settled()) or ready, 30)
+        time.sleep(0.7)
+        ready.extend(queue.settled())
+    assert [p.name for _, p in ready] == ["big.txt"]  # one hand-over, not hundreds
+    assert (root / "big.txt").stat().st_size == 256 * (14 * 292 + 1)
+
+
+# --- subprocess: the whole service ------------------------------------------------------------
+
+
+def test_watch_end_to_end_each_change_is_searchable_and_counted(tmp_path, watches):
+    root = tmp_path / "share"
+    write(root / "wheels.md", "# Wheels\n\nTrue the front wheel with spoke tension even.\n")
+    w = watches(make_config(tmp_path, {"share": root})).wait_listening()
+    wait_for("the start-up reconcile", w.commits_logged, 60)
+    assert "wheels.md" in w.search_paths("wheel")
+    assert w.get("/healthz")[0] == 200
+    commits = w.metric("upwell_commits_total")
+    assert commits >= 1 and w.metric("upwell_documents", 'source="share"') == 1
+
+    # create
+    write(root / "brakes.txt", "Bleed the rear brake with mineral oil, cinnabar bottle.\n")
+    wait_for(
+        "create",
+        lambda: "cinnabar" in w.search_paths("cinnabar").get("brakes.txt", ""),
+        CHANGE_DEADLINE,
+    )
+    # plain edit in place
+    write(root / "brakes.txt", "Bleed the rear brake with mineral oil, vermilion bottle.\n")
+    wait_for(
+        "edit",
+        lambda: "vermilion" in w.search_paths("vermilion").get("brakes.txt", ""),
+        CHANGE_DEADLINE,
+    )
+    # edit by write-temp-then-rename
+    write(root / "wheels.md.tmp", "# Wheels\n\nTrue the front wheel; record tension in ledger.\n")
+    os.replace(root / "wheels.md.tmp", root / "wheels.md")
+    wait_for(
+        "save-by-rename",
+        lambda: "ledger" in w.search_paths("ledger").get("wheels.md", ""),
+        CHANGE_DEADLINE,
+    )
+    # rename
+    os.rename(root / "brakes.txt", root / "brake-bleeding.txt")
+    wait_for(
+        "rename",
+        lambda: set(w.search_paths("vermilion brake")) == {"brake-bleeding.txt", "wheels.md"},
+        CHANGE_DEADLINE,
+    )
+    # delete
+    os.remove(root / "brake-bleeding.txt")
+    wait_for(
+        "delete", lambda: set(w.search_paths("vermilion brake")) == {"wheels.md"}, CHANGE_DEADLINE
+    )
+    # bad files: reported, the service keeps running
+    write(root / "broken.pdf", "this is not a PDF at all")
+    (root / "empty.txt").write_bytes(b"")
+
+    def failures() -> list[dict[str, Any]]:
+        return w.json("/status")["failures"]
+
+    bad = wait_for(
+        "the bad files in status", lambda: len(failures()) == 2 and failures(), CHANGE_DEADLINE
+    )
+    assert {f["path"] for f in bad} == {"broken.pdf", "empty.txt"}
+    assert w.metric("upwell_failures_total", 'reason="empty"') >= 1
+    assert w.metric("upwell_failures_total", 'reason="corrupt"') >= 1
+    assert w.get("/healthz")[0] == 200 and w.proc.poll() is None
+    write(root / "after.md", "# After\n\nStill indexing after the bad files: saddle height.\n")
+    wait_for(
+        "a change after the bad files",
+        lambda: "after.md" in w.search_paths("saddle"),
+        CHANGE_DEADLINE,
+    )
+
+    assert w.metric("upwell_commits_total") >= commits + 6
+    assert w.metric("upwell_chunks_reused_total") >= 1  # the rename reused its vectors
+    assert w.metric("upwell_chunks_embedded_total") >= 4
+    # the per-source gauges are refreshed just after the commit that search already sees
+    wait_for("the gauges", lambda: w.metric("upwell_documents", 'source="share"') == 2, 30)
+    assert w.metric("upwell_sync_duration_seconds_count") >= 7
+    assert w.metric("upwell_last_commit_timestamp_seconds") > 0
+    status = w.json("/status")
+    assert status["service"]["paused"] is False and status["service"]["queue_depth"] >= 0
+    assert w.get("/nothing")[0] == 404
+    assert w.stop() == 0
+    assert "failed share/broken.pdf" in w.text()
+
+
+def test_second_writer_is_refused_with_exit_4_while_search_works(tmp_path, watches):
+    root = tmp_path / "share"
+    write(root / "frames.md", "# Frames\n\nA frame damaged in transit may be returned.\n")
+    config = make_config(tmp_path, {"share": root})
+    w = watches(config).wait_listening()
+    wait_for("the first commit", w.commits_logged, 60)
+    sync = upwell("--config", str(config), "sync")
+    assert sync.returncode == 4
+    assert f"process {w.proc.pid}" in sync.stderr
+    second = watches(config)
+    assert second.proc.wait(timeout=120) == 4
+    assert f"process {w.proc.pid}" in second.text()
+    search = upwell("--config", str(config), "search", "damaged frame", "--json")
+    assert search.returncode == 0
+    assert json.loads(search.stdout)["results"][0]["path"] == "frames.md"
+    assert w.stop() == 0
+
+
+def test_sigterm_mid_batch_leaves_each_batch_committed_whole_or_not_at_all(tmp_path, watches):
+    root = tmp_path / "share"
+    rng = random.Random(11)
+    for i in range(240):
+        write(root / f"procedure-{i:03d}.md", f"# Procedure {i}\n\n" + paragraph(rng, 8))
+    config = make_config(tmp_path, {"share": root}, batch_documents=10)
+    w = watches(config).wait_listening()
+    ix = tmp_path / "ix"
+    wait_for(
+        "the first commit of the start-up sync",
+        lambda: (ix / "settings.lance").exists() and Index(ix).store().count("commits") > 0,
+        60,
+    )
+    signalled = time.monotonic()
+    code = w.stop(signal.SIGTERM)
+    print(f"\nSIGTERM to exit: {time.monotonic() - signalled:.2f} s")  # target: under 10 s
+    assert code == 0
+    index = Index(tmp_path / "ix")
+    report = verify_index(index, drift=False)
+    assert report.consistent, report.problems
+    store = index.store()
+    docs = store.all_documents()
+    commits = store.commits()
+    # Every committed batch is whole (10 documents each), and the stop came before the end.
+    assert len(docs) == sum(c["documents_added"] for c in commits)
+    assert all(c["documents_added"] == 10 for c in commits)
+    assert 0 < len(docs) < 240
+    # A restart finishes the job and equals a clean build.
+    w2 = watches(config).wait_listening()
+    wait_for(
+        "the restart to catch up", lambda: w2.json("/status")["totals"]["documents"] == 240, 120
+    )
+    assert w2.stop() == 0
+    assert table_snapshot(tmp_path / "ix") == table_snapshot(clean_build(tmp_path, config))
+
+
+@pytest.mark.slow
+def test_kill_9_at_random_moments_then_restart_converges_to_a_clean_build(tmp_path, watches):
+    root = tmp_path / "share"
+    rng = random.Random(2024)
+    next_id = 0
+
+    def add(n: int) -> None:
+        nonlocal next_id
+        for _ in range(n):
+            write(
+                root / f"part-{next_id // 40}" / f"note-{next_id:04d}.md",
+                f"# Note {next_id}\n\n" + paragraph(rng, 6),
+            )
+            next_id += 1
+
+    add(160)
+    config = make_config(tmp_path, {"share": root}, batch_documents=8)
+    ix = tmp_path / "ix"
+    deleted_while_indexed: set[str] = set()
+    deleted: set[str] = set()
+    kills = 0
+    mid_sync = 0
+    for _round in range(12):
+        w = watches(config).wait_listening()
+        time.sleep(rng.uniform(0.0, 1.5))
+        w.proc.send_signal(signal.SIGKILL)
+        assert w.stop(signal.SIGKILL) == -signal.SIGKILL
+        kills += 1
+        # the start-up sync logs its line when its last batch has committed
+        mid_sync += "synced source=share trigger=start" not in w.text()
+        # change the share while the service is down: edits, removals, additions
+        indexed = set()
+        if (ix / "settings.lance").exists():
+            indexed = {d["doc_id"] for d in Index(ix).store().all_documents() if d["content_hash"]}
+        files = sorted(p for p in root.rglob("*.md"))
+        for p in rng.sample(files, 10):
+            p.write_text(p.read_text() + "\n" + paragraph(rng, 2))
+        for p in rng.sample(files, 3):
+            doc_id = "share:" + p.relative_to(root).as_posix()
+            if doc_id in deleted:
+                continue
+            if doc_id in indexed:
+                deleted_while_indexed.add(doc_id)
+            deleted.add(doc_id)
+            p.unlink()
+        add(24)
+    sources = [s.folder_source() for s in load_config(config).sources]
+    w = watches(config).wait_listening()
+    wait_for("the final reconcile", lambda: "synced source=share trigger=start" in w.text(), 120)
+    assert w.stop() == 0
+    print(f"\ncrash test: {kills} kill -9, {mid_sync} of them before the start-up sync finished")
+    assert kills >= 10 and mid_sync >= 5
+    report = verify_index(Index(ix), sources)
+    assert report.consistent, report.problems
+    assert table_snapshot(ix) == table_snapshot(clean_build(tmp_path, config))
+    # no lost tombstone: every removal of an indexed document is logged, and nothing else is
+    assert deleted_while_indexed <= tombstoned(ix) <= deleted
+
+
+def test_sighup_reload_adds_and_removes_sources_without_a_restart(tmp_path, watches):
+    first, second = tmp_path / "first", tmp_path / "second"
+    write(first / "a.md", "# A\n\nChain wear gauge reading.\n")
+    write(second / "b.md", "# B\n\nHeadset bearing preload.\n")
+    config = make_config(tmp_path, {"first": first})
+    w = watches(config).wait_listening()
+    wait_for("first", w.commits_logged, 60)
+    assert "a.md" in w.search_paths("chain")
+    make_config(tmp_path, {"first": first, "second": second})
+    w.proc.send_signal(signal.SIGHUP)
+    wait_for("second", lambda: "b.md" in w.search_paths("headset"), CHANGE_DEADLINE)
+    make_config(tmp_path, {"second": second})
+    w.proc.send_signal(signal.SIGHUP)
+    wait_for("the second reload", lambda: w.text().count("configuration reloaded") == 2, 30)
+    write(first / "c.md", "# C\n\nNot watched any more: derailleur hanger.\n")
+    write(second / "d.md", "# D\n\nStill watched: brake rotor truing.\n")
+    wait_for("d.md", lambda: "d.md" in w.search_paths("rotor"), CHANGE_DEADLINE)
+    assert "c.md" not in w.search_paths("derailleur hanger")
+    assert w.proc.poll() is None and w.stop() == 0
+
+
+def test_bearer_token_is_required_when_configured_and_logs_are_json_lines(tmp_path, watches):
+    root = tmp_path / "share"
+    write(root / "a.md", "# A\n\nTorque the stem bolts.\n")
+    config = make_config(tmp_path, {"share": root}, token_env="MARROWBY_TEST_TOKEN")
+    env = {"MARROWBY_TEST_TOKEN": "s3cret-for-tests"}
+    w = watches(config, env, "--log-format", "json")
+    w.port = wait_for(
+        "the listening line",
+        lambda: next(
+            (e["port"] for e in map(json.loads, w.text().splitlines()) if "port" in e), None
+        ),
+        START_DEADLINE,
+    )
+    assert w.get("/healthz")[0] == 401
+    assert w.get("/healthz", token="wrong")[0] == 401
+    wait_for("healthy", lambda: w.get("/healthz", token="s3cret-for-tests")[0] == 200, 30)
+    wait_for("the first commit", lambda: '"event": "commit"' in w.text(), 60)
+    assert w.stop() == 0
+    events = [json.loads(line) for line in w.text().splitlines()]  # every line is JSON
+    commit = next(e for e in events if e.get("event") == "commit")
+    assert commit["source"] == "share" and commit["documents"]["added"] == 1
+    assert events[-1]["event"] == "stopped"
+
+
+@pytest.mark.slow
+def test_save_to_searchable_latency_with_the_default_model(tmp_path, watches):
+    """End to end with the real model; prints p50/p95 of file saved -> found by /search."""
+    root = tmp_path / "share"
+    write(root / "returns.md", "# Returns\n\nA frame damaged in transit may be returned.\n")
+    w = watches(make_config(tmp_path, {"share": root}, model="default")).wait_listening()
+    wait_for("start-up", w.commits_logged, 120)
+    assert "returns.md" in w.search_paths("returned frame")
+    topics = [
+        ("saddle", "Set the saddle height so the knee is slightly bent at the bottom."),
+        ("chain", "Replace the chain when the wear gauge drops into the links."),
+        ("tyre", "Inflate the tyre to the pressure printed on its sidewall."),
+        ("brake", "Bleed the hydraulic brake with mineral oil only."),
+        ("headset", "Adjust the headset until the fork turns without play."),
+    ]
+    latencies = []
+    for n in range(20):
+        word, text = topics[n % len(topics)]
+        name = f"note-{n:02d}.md"
+        started = time.monotonic()
+        if n % 2:  # every other save goes through a temp file and a rename, as editors do
+            write(root / f".{name}.swp", f"# Note {n}\n\n{text}\n")
+            os.replace(root / f".{name}.swp", root / name)
+        else:
+            write(root / name, f"# Note {n}\n\n{text}\n")
+        wait_for(
+            name, lambda name=name, text=text: name in w.search_paths(text, k=5), CHANGE_DEADLINE
+        )
+        latencies.append(time.monotonic() - started)
+    # The model ranks the matching note first (meaning, not just shared words).
+    top = w.json("/search?q=how+high+should+the+seat+be&k=1")["results"][0]
+    assert "saddle" in top["text"]
+    assert w.stop() == 0
+    p50 = statistics.median(latencies)
+    p95 = statistics.quantiles(latencies, n=20)[-1]
+    print(f"\nsave-to-searchable over {len(latencies)} saves: p50 {p50:.2f} s, p95 {p95:.2f} s")
