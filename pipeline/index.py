@@ -29,14 +29,14 @@ import numpy as np
 from connectors.folder import FolderSource
 
 from . import formats, history, maintenance
-from .history import Commit, Diff, RetentionPlan, RollbackPlan
 from .embedding import make_embedder
 from .errors import ConfirmationRequired, SyncPaused, UnknownVersion, UsageError
+from .history import Commit, Diff, RetentionPlan, RollbackPlan
 from .locking import writer_lock
 from .progress import Progress
 from .records import ChunkSettings, Extracted, Fingerprint, Limits, SourceItem, segments_from_json
 from .store import FORMAT_VERSION, Store, quote
-from .sync import Source, SyncEngine, SyncReport, new_commit_id, utc_now
+from .sync import CommitResult, Source, SyncEngine, SyncReport, new_commit_id, utc_now
 
 DEFAULT_INDEX = ".upwell"
 _NAMED_PATH = re.compile(r"^([A-Za-z0-9][A-Za-z0-9_.-]*)=(.+)$")
@@ -222,6 +222,8 @@ class Index:
         yes: bool = False,
         confirm: Callable[[str], bool] | None = None,
         trigger: str = "sync",
+        should_stop: Callable[[], bool] | None = None,
+        on_commit: Callable[[CommitResult], None] | None = None,
     ) -> SyncReport:
         """Bring the index in line with the sources; one commit per batch of changed documents.
 
@@ -251,7 +253,14 @@ class Index:
                 max_removal_fraction=self.max_removal_fraction,
                 progress=self.progress,
             )
-            report = engine.sync(resolved, yes=yes, confirm=confirm, trigger=trigger)
+            report = engine.sync(
+                resolved,
+                yes=yes,
+                confirm=confirm,
+                trigger=trigger,
+                should_stop=should_stop,
+                on_commit=on_commit,
+            )
             if locations is not None:
                 store.update_setting("source_locations", locations)
             return report

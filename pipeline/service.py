@@ -27,7 +27,7 @@ import signal
 import sys
 import threading
 import time
-from collections.abc import Callable, Iterable, Iterator
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
@@ -45,9 +45,7 @@ from .config import Config, SourceConfig, load_config
 from .errors import ConfirmationRequired, SourceError, SyncPaused, UpwellError
 from .index import Index
 from .metrics import ServiceMetrics
-from .progress import Progress
 from .sync import SyncReport
-from .verify import remove_orphan_chunks
 
 log = logging.getLogger("upwell.service")
 T = TypeVar("T")
@@ -210,31 +208,6 @@ class WorkQueue:
             return self._work.paths
 
 
-# --- stopping between batches ----------------------------------------------------------------
-
-
-class StopRequested(Exception):
-    """Raised inside a sync, before a new batch reads anything, once the service is stopping."""
-
-
-class _BatchGate(Progress):
-    """Progress that refuses to start a new batch after a stop was requested.
-
-    The engine calls ``iterate`` once at the start of each batch, before the batch reads or
-    writes anything, so raising there leaves every earlier batch committed whole and the next one
-    not begun. (The engine has no cancellation hook of its own.)
-    """
-
-    def __init__(self, stop: threading.Event) -> None:
-        super().__init__(enabled=False)
-        self._stop = stop
-
-    def iterate(self, items: Iterable[T], desc: str) -> Iterator[T]:
-        if self._stop.is_set():
-            raise StopRequested(desc)
-        yield from items
-
-
 # --- watching ------------------------------------------------------------------------------
 
 
@@ -287,7 +260,6 @@ class Service:
         self.reload_requested = threading.Event()
         self.settle = SettleQueue(config.service.settle_seconds)
         self.work = WorkQueue()
-        self.index.progress = _BatchGate(self.stop_event)
         self.index.batch_documents = config.service.batch_documents
         self._observers: dict[str, Any] = {}
         # reload (main thread) and the hourly reconcile (scheduler thread) both start observers
@@ -540,8 +512,6 @@ class Service:
                         self.sync_source(configured[name], trigger)
                 if work.maintenance and not self.stop_event.is_set():
                     self.maintain()
-            except StopRequested:
-                pass
             finally:
                 self.busy.clear()
             self.metrics.queue_depth.set(self.queue_depth())
@@ -552,11 +522,12 @@ class Service:
         """Sync one whole source; log the commit and each failure. Never raises UpwellError."""
         started = time.monotonic()
         try:
-            # FolderSource is a frozen dataclass; sync.Source declares a settable name.
-            folder: Any = source.folder_source()
-            result = self.index.sync([folder], trigger=trigger)
-        except StopRequested:
-            raise
+            result = self.index.sync(
+                [source.folder_source()],
+                trigger=trigger,
+                # Once stopping, no new batch starts; the batch in hand finishes and commits.
+                should_stop=self.stop_event.is_set,
+            )
         except SyncPaused as exc:
             if not self.index_paused.is_set():
                 log.warning(str(exc), extra={"fields": {"event": "paused", "reason": str(exc)}})
@@ -591,8 +562,6 @@ class Service:
             )
             return None
         self.index_paused.clear()
-        if trigger in ("start", "reconcile"):
-            self._sweep_orphans(source.name)
         seconds = time.monotonic() - started
         report = result.as_dict()
         self.metrics.record_sync(report, seconds)
@@ -602,20 +571,6 @@ class Service:
         except UpwellError:
             pass
         return report
-
-    def _sweep_orphans(self, source: str) -> None:
-        """Remove chunks a killed writer left without a document row (see verify.py)."""
-        try:
-            removed = remove_orphan_chunks(self.index, [source])
-        except UpwellError as exc:
-            log.error(f"source {source!r}: orphan sweep failed: {exc}")
-            return
-        if removed:
-            log.warning(
-                f"source {source!r}: removed the chunks of {len(removed)} documents that an "
-                "interrupted batch left without a document row",
-                extra={"fields": {"event": "orphans_removed", "doc_ids": removed}},
-            )
 
     def _log_report(self, source: str, trigger: str, result: SyncReport, seconds: float) -> None:
         """A line per commit of the sync (logged when the sync returns), a line per failure."""

@@ -288,6 +288,11 @@ class Store:
                 out.setdefault(d, []).append((c, o))
         return out
 
+    def chunk_doc_ids(self, source: str) -> set[str]:
+        """The doc ids that have chunks in one source."""
+        rows = self._scan("chunks", ["doc_id"], f"source = {quote(source)}")
+        return set(rows["doc_id"].to_pylist())
+
     def chunk_counts(self) -> dict[str, int]:
         """Number of chunks per source."""
         rows = self._scan("chunks", ["source"])

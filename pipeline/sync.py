@@ -105,6 +105,7 @@ class SyncReport:
     counts: Counts = field(default_factory=Counts)
     failures: list[Failure] = field(default_factory=list)
     version: int = 0
+    interrupted: bool = False
 
     def as_dict(self) -> dict[str, Any]:
         last = self.commits[-1] if self.commits else None
@@ -115,6 +116,7 @@ class SyncReport:
             "documents": dict(self.counts.documents),
             "chunks": dict(self.counts.chunks),
             "failures": [f.as_dict() for f in self.failures],
+            "interrupted": self.interrupted,
         }
 
 
@@ -193,18 +195,45 @@ class SyncEngine:
         yes: bool = False,
         confirm: Callable[[str], bool] | None = None,
         trigger: str = "sync",
+        should_stop: Callable[[], bool] | None = None,
+        on_commit: Callable[[CommitResult], None] | None = None,
     ) -> SyncReport:
         """Bring the index in line with every source; each source independently.
 
         Listing all sources happens before anything is written, so an unreachable source stops
-        the run before any change is made.
+        the run before any change is made. ``should_stop`` is asked before each batch: once it
+        says yes, no further batch starts (those done are committed whole) and the report says
+        ``interrupted``. ``on_commit`` is called as each commit lands.
         """
         report = SyncReport()
         listings = [(s, list(s.list_items())) for s in sources]
+        # A batch killed after its chunks were written but before its document rows leaves
+        # chunks the documents table does not know; if the file is then gone, nothing else
+        # would remove them. Such a crash shows as a chunks version no commit recorded.
+        sweep = self._chunks_changed_since_last_commit()
         for source, items in listings:
-            self._sync_source(source, items, report, yes=yes, confirm=confirm, trigger=trigger)
+            self._sync_source(
+                source,
+                items,
+                report,
+                yes=yes,
+                confirm=confirm,
+                trigger=trigger,
+                sweep=sweep,
+                should_stop=should_stop or (lambda: False),
+                on_commit=on_commit,
+            )
+            if report.interrupted:
+                break
         report.version = int(self.store.table("chunks").version)
         return report
+
+    def _chunks_changed_since_last_commit(self) -> bool:
+        log = self.store.commits()
+        current = int(self.store.table("chunks").version)
+        if not log:
+            return self.store.count("chunks") > 0
+        return int(log[-1]["chunks_version"]) != current
 
     def _sync_source(
         self,
@@ -215,12 +244,19 @@ class SyncEngine:
         yes: bool,
         confirm: Callable[[str], bool] | None,
         trigger: str,
+        sweep: bool,
+        should_stop: Callable[[], bool],
+        on_commit: Callable[[CommitResult], None] | None,
     ) -> None:
         known = self.store.documents_of_source(source.name)
         listed = {item.doc_id for item in items}
         removed = [d for d in known if d not in listed]
+        if sweep:
+            # Chunks of documents neither listed nor known: left by a batch that died between
+            # its chunk write and its document rows. They leave with the last batch.
+            removed += sorted(self.store.chunk_doc_ids(source.name) - listed - set(known))
         searchable = [d for d, r in known.items() if r["content_hash"]]
-        gone = [d for d in removed if known[d]["content_hash"]]
+        gone = [d for d in removed if d in known and known[d]["content_hash"]]
         if searchable and len(gone) > self.max_removal_fraction * len(searchable) and not yes:
             message = (
                 f"source {source.name!r}: this sync would remove {len(gone)} of its "
@@ -252,6 +288,9 @@ class SyncEngine:
             for i in range(0, len(to_read), self.batch_documents)
         ] or [[]]
         for n, batch in enumerate(batches):
+            if should_stop():
+                report.interrupted = True
+                return
             last = n == len(batches) - 1
             counts = Counts()
             counts.documents["unchanged"] = unchanged if n == 0 else 0
@@ -269,6 +308,8 @@ class SyncEngine:
             report.counts.add(counts)
             if result is not None:
                 report.commits.append(result)
+                if on_commit is not None:
+                    on_commit(result)
 
     # --- one batch, one commit -------------------------------------------------------------
 
@@ -426,7 +467,9 @@ class SyncEngine:
         expected_version = int(self.store.table("chunks").version) + (1 if write_docs else 0)
         tombstones = []
         for doc_id in removals:
-            row = known[doc_id]
+            row = known.get(doc_id)
+            if row is None:
+                continue  # chunks orphaned by an interrupted batch: never logged, not counted
             counts.documents["removed"] += 0 if _is_move_source(doc_id, work) else 1
             if not row["content_hash"]:
                 continue  # never searchable: nothing to log

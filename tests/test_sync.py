@@ -465,3 +465,38 @@ def test_a_long_running_writer_holds_the_lock_across_syncs(tmp_path, small_corpu
             other.sync([small_corpus])
         ix.sync([small_corpus])
     assert other.sync([small_corpus]).as_dict()["commit"] is None
+
+
+def test_chunks_left_by_a_crash_are_removed_when_their_file_is_gone(
+    tmp_path, small_corpus, hash_embedder, monkeypatch
+):
+    ix = make_index(tmp_path, hash_embedder)
+    ix.sync([small_corpus])
+    write(small_corpus / "policies" / "loans.md", "# Loan bikes\n\nLoan bikes are free for a day.\n")
+    monkeypatch.setattr(Store, "upsert_documents", lambda self, *a, **k: 1 / 0)
+    with pytest.raises(ZeroDivisionError):
+        ix.sync([small_corpus])  # chunks written, document rows not: the process "died"
+    monkeypatch.undo()
+    (small_corpus / "policies" / "loans.md").unlink()  # and the file went away meanwhile
+    restarted = make_index(tmp_path, hash_embedder)  # as a new process
+    report = restarted.sync([small_corpus]).as_dict()
+    assert report["documents"]["removed"] == 0  # never committed, so never counted or logged
+    assert report["chunks"]["deleted"] >= 1
+    doc_ids = {r["doc_id"] for r in chunk_rows(restarted)}
+    assert "share:policies/loans.md" not in doc_ids
+    assert restarted.store().count("tombstones") == 0
+    # With nothing interrupted since, the next sync does not scan for orphans at all.
+    assert make_index(tmp_path, hash_embedder).sync([small_corpus]).as_dict()["commit"] is None
+
+
+def test_should_stop_ends_a_sync_between_batches(tmp_path, hash_embedder):
+    root = tmp_path / "many"
+    for n in range(7):
+        write(root / f"note-{n}.md", f"# Note {n}\n\nWorkshop note number {n} about spokes.\n")
+    ix = make_index(tmp_path, hash_embedder, batch_documents=3)
+    landed = []
+    report = ix.sync([root], should_stop=lambda: len(landed) >= 2, on_commit=landed.append)
+    assert report.interrupted and len(report.commits) == 2 == len(landed)
+    assert report.as_dict()["documents"]["added"] == 6
+    rest = ix.sync([root]).as_dict()
+    assert rest["documents"]["added"] == 1 and not rest["interrupted"]
