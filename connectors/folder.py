@@ -10,9 +10,11 @@ from __future__ import annotations
 
 import fnmatch
 import os
+import re
 import stat
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
+from functools import cached_property, lru_cache
 from pathlib import Path
 
 from pipeline.errors import (
@@ -41,20 +43,49 @@ DEFAULT_EXCLUDE: tuple[str, ...] = (
 )
 
 
-def _match(rel: str, patterns: Sequence[str]) -> bool:
-    """Glob match where "**/" also matches at the top level."""
-    name = rel.rsplit("/", 1)[-1]
-    for pattern in patterns:
-        if fnmatch.fnmatchcase(rel, pattern):
+class _Globs:
+    """Glob patterns compiled once. ``*`` also matches ``/`` (fnmatch), and a pattern that
+    starts with ``**/`` also matches at the top level and against a bare file or folder name."""
+
+    def __init__(self, patterns: Sequence[str]) -> None:
+        def combined(globs: list[str]) -> re.Pattern[str] | None:
+            if not globs:
+                return None
+            return re.compile("|".join(f"(?:{fnmatch.translate(g)})" for g in globs))
+
+        tails = [p[3:] for p in patterns if p.startswith("**/")]
+        self._paths = combined(list(patterns) + tails)
+        self._names = combined(tails)
+        self.everything = any(p in ("*", "**", "**/*") for p in patterns)
+
+    def file(self, rel: str, name: str) -> bool:
+        if self.everything:
             return True
-        if pattern.startswith("**/"):
-            tail = pattern[3:]
-            if fnmatch.fnmatchcase(rel, tail) or fnmatch.fnmatchcase(name, tail):
-                return True
-            # a pattern for a folder component, such as "**/.*", also excludes what is inside it
-            if any(fnmatch.fnmatchcase(part, tail) for part in rel.split("/")[:-1]):
-                return True
-    return False
+        return bool(
+            (self._paths and self._paths.match(rel)) or (self._names and self._names.match(name))
+        )
+
+    def folder(self, rel: str, name: str) -> bool:
+        """Whether a folder's contents are covered, judged by its name or its path."""
+        return bool(
+            (self._names and self._names.match(name))
+            or (self._paths and self._paths.match(rel + "/x"))
+        )
+
+
+@lru_cache(maxsize=64)
+def _globs(patterns: tuple[str, ...]) -> _Globs:
+    return _Globs(patterns)
+
+
+def path_matches(rel: str, patterns: Sequence[str]) -> bool:
+    """Whether a relative path is covered by the patterns, as the folder walk judges it: the
+    file itself, or any folder on its way."""
+    globs = _globs(tuple(patterns))
+    parts = rel.split("/")
+    if globs.file(rel, parts[-1]):
+        return True
+    return any(globs.folder("/".join(parts[: i + 1]), parts[i]) for i in range(len(parts) - 1))
 
 
 @dataclass(frozen=True)
@@ -66,6 +97,14 @@ class FolderSource:
     include: tuple[str, ...] = ("**/*",)
     exclude: tuple[str, ...] = DEFAULT_EXCLUDE
     accept: Callable[[str], bool] = field(default=lambda key: True, compare=False)
+
+    @cached_property
+    def _excluded(self) -> _Globs:
+        return _globs(tuple(self.exclude))
+
+    @cached_property
+    def _included(self) -> _Globs:
+        return _globs(tuple(self.include))
 
     @classmethod
     def from_path(cls, path: str | os.PathLike[str], accept: Callable[[str], bool]) -> FolderSource:
@@ -113,16 +152,19 @@ class FolderSource:
             if prefix == "":
                 raise SourceUnreachable(f"source {self.name!r}: {folder} vanished") from None
             return
+        excluded, included = self._excluded, self._included
         for entry in entries:
-            rel = prefix + entry.name
+            name = entry.name
+            rel = prefix + name
             try:
                 if entry.is_dir(follow_symlinks=False):
-                    if not _match(rel + "/x", self.exclude):
+                    # Folders are judged once here, so files inside need no folder checks.
+                    if not excluded.folder(rel, name):
                         yield from self._walk(Path(entry.path), rel + "/")
                     continue
                 if not entry.is_file(follow_symlinks=False):
                     continue
-                if _match(rel, self.exclude) or not _match(rel, self.include):
+                if excluded.file(rel, name) or not included.file(rel, name):
                     continue
                 if not self.accept(rel):
                     continue

@@ -30,7 +30,7 @@ from connectors.folder import FolderSource
 
 from . import formats, history, maintenance
 from .embedding import make_embedder
-from .errors import ConfirmationRequired, SyncPaused, UnknownVersion, UsageError
+from .errors import ConfirmationRequired, ModelMismatch, SyncPaused, UnknownVersion, UsageError
 from .history import Commit, Diff, RetentionPlan, RollbackPlan
 from .locking import writer_lock
 from .progress import Progress
@@ -147,11 +147,15 @@ class Index:
         return self._store
 
     def embedder(self) -> Any:
+        """The index's embedder. For an existing index it is loaded only when text needs
+        tokens or vectors, so a sync that finds nothing changed never loads the model."""
         if self._embedder is None:
-            spec = self._model_spec
-            if spec is None:
-                spec = self.store().settings().get("model", DEFAULT_MODEL) if self.exists else None
-            self._embedder = make_embedder(spec or DEFAULT_MODEL)
+            recorded = self.store().settings() if self.exists else {}
+            spec = self._model_spec or recorded.get("model") or DEFAULT_MODEL
+            if recorded and spec == recorded.get("model"):
+                self._embedder = _DeferredEmbedder(spec, recorded)
+            else:
+                self._embedder = make_embedder(spec)
         return self._embedder
 
     def _wanted_settings(self) -> dict[str, Any]:
@@ -263,6 +267,8 @@ class Index:
             )
             if locations is not None:
                 store.update_setting("source_locations", locations)
+            if report.commits:
+                maintenance.ensure_indexes(store)
             return report
 
     @staticmethod
@@ -335,10 +341,8 @@ class Index:
             table = store.db.open_table("chunks")
             table.checkout(commit.version)
         vector = np.asarray(self.embedder().embed([query])[0], dtype=np.float32)
-        q = table.search(vector, vector_column_name="vector").metric("cosine")
-        if source is not None:
-            q = q.where(f"source = {quote(source)}", prefilter=True)
-        rows = q.select(SEARCH_COLUMNS).limit(k).to_arrow().to_pylist()
+        where = f"source = {quote(source)}" if source is not None else None
+        rows = store.search(vector, k, SEARCH_COLUMNS, where=where, table=table)
         return [
             Hit(
                 # LanceDB's cosine distance is 1 - cosine similarity.
@@ -529,7 +533,7 @@ class Index:
                     raise ConfirmationRequired(
                         message + "\nNothing was changed; re-run with --yes."
                     )
-            created = maintenance.ensure_scalar_indexes(store)
+            created = maintenance.ensure_indexes(store)
             report = maintenance.compact_and_clean(store, timedelta(days=keep_days))
             report.indexes_created = created
             return {
@@ -653,6 +657,43 @@ class Index:
             "pending_rollback": bool(settings.get(history.PENDING_ROLLBACK)),
             "tags": sorted(settings.get("tags", {})),
         }
+
+
+class _DeferredEmbedder:
+    """Stands in for an index's recorded embedder and loads it on first real use.
+
+    The id, dimension and token budget come from the index's settings; once loaded, the
+    model must have the id the index recorded (a changed package is a ModelMismatch).
+    """
+
+    def __init__(self, spec: str, recorded: dict[str, Any]) -> None:
+        self.spec = spec
+        self.model_id: str = recorded["model_id"]
+        self.dimension: int = int(recorded["dimension"])
+        self.max_input_tokens: int = int(recorded["max_input_tokens"])
+        self._loaded: Any = None
+
+    def _load(self) -> Any:
+        if self._loaded is None:
+            embedder = make_embedder(self.spec)
+            if embedder.model_id != self.model_id:
+                raise ModelMismatch(
+                    f"the index was built with {self.model_id}, but {self.spec!r} now loads "
+                    f"{embedder.model_id}; install the model the index was built with, or "
+                    "`upwell rebuild --into NEW_DIR --new-model SPEC`"
+                )
+            self._loaded = embedder
+        return self._loaded
+
+    @property
+    def tokens(self) -> Any:
+        return self._load().tokens
+
+    def embed(self, texts: Sequence[str]) -> np.ndarray:
+        return np.asarray(self._load().embed(texts))
+
+    def describe(self) -> dict[str, Any]:
+        return dict(self._load().describe())
 
 
 def _stored_document(row: dict[str, Any]) -> tuple[SourceItem, str, Extracted, str]:

@@ -13,6 +13,8 @@ deletions materialised, and removes every old version that still holds them.
 from __future__ import annotations
 
 import json
+import math
+import warnings
 from dataclasses import dataclass, field
 from datetime import timedelta
 from typing import Any
@@ -23,7 +25,12 @@ from .store import TABLES, Store, in_filter
 
 # Scalar indexes worth having once a table is this large (smaller tables scan faster).
 SCALAR_INDEX_MIN_ROWS = 5_000
-SCALAR_INDEXES = {"chunks": ("doc_id", "text_hash"), "vectors": ("text_hash",)}
+SCALAR_INDEXES = {"chunks": ("doc_id", "text_hash", "source"), "vectors": ("text_hash",)}
+# Past this many chunks an exact scan costs tens of milliseconds a query: build an ANN index.
+# Measured with lancedb 0.40 at 100,000 rows on 2 cores: exact scan 150-190 ms; IVF_SQ builds
+# in 8-11 s and answers in about 6 ms with recall@10 1.00 at nprobes 20, refine_factor 5.
+VECTOR_INDEX_MIN_ROWS = 20_000
+MAINTAINED_VERSION = "maintained_chunks_version"
 
 
 @dataclass
@@ -78,6 +85,8 @@ def compact_and_clean(
             ) from None
         table.checkout_latest()
         ds = table.to_lance()
+        if name == "chunks":
+            store.update_setting(MAINTAINED_VERSION, int(table.version))
         report.tables[name] = {
             "versions_removed": int(stats.old_versions),
             "bytes_removed": int(stats.bytes_removed),
@@ -90,6 +99,41 @@ def compact_and_clean(
 
 def _data_files(ds: Any) -> int:
     return sum(len(fragment.data_files()) for fragment in ds.get_fragments())
+
+
+def ensure_indexes(
+    store: Store,
+    *,
+    scalar_min_rows: int = SCALAR_INDEX_MIN_ROWS,
+    vector_min_rows: int = VECTOR_INDEX_MIN_ROWS,
+) -> list[str]:
+    """Scalar indexes and the vector index, each once its table is large enough.
+
+    Building an index makes a chunks version that no commit records; it is noted in the
+    settings so the next sync does not take it for an interrupted batch.
+    """
+    created = ensure_scalar_indexes(store, scalar_min_rows)
+    chunks = store.table("chunks")
+    if not _has_vector_index(chunks) and chunks.count_rows() >= vector_min_rows:
+        rows = chunks.count_rows()
+        with warnings.catch_warnings():
+            # lancedb 0.40 prefers a config object; these keyword arguments still work.
+            warnings.simplefilter("ignore", DeprecationWarning)
+            chunks.create_index(
+                metric="cosine",
+                vector_column_name="vector",
+                index_type="IVF_SQ",
+                num_partitions=max(1, int(math.sqrt(rows))),
+            )
+        created.append("chunks.vector (IVF_SQ)")
+    if created:
+        chunks.checkout_latest()
+        store.update_setting(MAINTAINED_VERSION, int(chunks.version))
+    return created
+
+
+def _has_vector_index(table: Any) -> bool:
+    return any("vector" in tuple(ix.columns) for ix in table.list_indices())
 
 
 def ensure_scalar_indexes(store: Store, min_rows: int = SCALAR_INDEX_MIN_ROWS) -> list[str]:
@@ -107,7 +151,10 @@ def ensure_scalar_indexes(store: Store, min_rows: int = SCALAR_INDEX_MIN_ROWS) -
         for column in columns:
             if (column,) in have:
                 continue
-            table.create_scalar_index(column, index_type="BTREE", replace=False)
+            with warnings.catch_warnings():
+                # Deprecated in lancedb 0.40, but its replacement only builds vector indexes.
+                warnings.simplefilter("ignore", DeprecationWarning)
+                table.create_scalar_index(column, index_type="BTREE", replace=False)
             created.append(f"{name}.{column}")
     return created
 

@@ -39,7 +39,7 @@ from apscheduler.triggers.interval import IntervalTrigger
 from watchdog.events import FileSystemEvent, FileSystemEventHandler
 from watchdog.observers import Observer
 
-from connectors.folder import _match as glob_match  # the connector's own pattern semantics
+from connectors.folder import path_matches
 
 from .config import Config, SourceConfig, load_config
 from .errors import ConfirmationRequired, SourceError, SyncPaused, UpwellError
@@ -242,7 +242,7 @@ class _SourceEvents(FileSystemEventHandler):
 
     def _ignored(self, rel: str) -> bool:
         # Editor temp files and the like would only cause an empty sync.
-        return glob_match(rel, self.source.exclude) or not glob_match(rel, self.source.include)
+        return path_matches(rel, self.source.exclude) or not path_matches(rel, self.source.include)
 
 
 # --- the service ---------------------------------------------------------------------------

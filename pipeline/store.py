@@ -288,6 +288,28 @@ class Store:
                 out.setdefault(d, []).append((c, o))
         return out
 
+    def search(
+        self,
+        vector: np.ndarray,
+        k: int,
+        columns: list[str],
+        *,
+        where: str | None = None,
+        table: Any = None,
+    ) -> list[dict[str, Any]]:
+        """The k rows nearest to ``vector`` by cosine distance (``_distance`` = 1 - cosine).
+
+        Exact while the table has no vector index; with one (see maintenance.ensure_indexes),
+        IVF search refined on the original vectors, which keeps recall@10 at 1.00 in our
+        measurement at 100,000 rows.
+        """
+        table = table if table is not None else self._t["chunks"]
+        q = table.search(vector, vector_column_name="vector").metric("cosine")
+        q = q.nprobes(20).refine_factor(5)  # used only when an IVF index exists
+        if where is not None:
+            q = q.where(where, prefilter=True)
+        return q.select(columns).limit(k).to_arrow().to_pylist()
+
     def chunk_doc_ids(self, source: str) -> set[str]:
         """The doc ids that have chunks in one source."""
         rows = self._scan("chunks", ["doc_id"], f"source = {quote(source)}")

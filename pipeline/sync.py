@@ -233,7 +233,9 @@ class SyncEngine:
         current = int(self.store.table("chunks").version)
         if not log:
             return self.store.count("chunks") > 0
-        return int(log[-1]["chunks_version"]) != current
+        # Maintenance and index builds also make versions; they record the one they left.
+        maintained = self.store.settings().get("maintained_chunks_version")
+        return current not in (int(log[-1]["chunks_version"]), maintained)
 
     def _sync_source(
         self,

@@ -64,7 +64,10 @@ _SIGNATURES: tuple[tuple[bytes, str], ...] = (
 
 def media_type_for(name: str) -> str | None:
     """The media type upwell extracts ``name`` as, judged by its suffix (any case); else None."""
-    return _MEDIA_TYPES.get(PurePath(name).suffix.lower())
+    # Called once per listed file: a plain string split, not a PurePath.
+    base = name.rpartition("/")[2]
+    dot = base.rfind(".")
+    return _MEDIA_TYPES.get(base[dot:].lower()) if dot > 0 else None
 
 
 def describe_content(data: bytes) -> str:

@@ -1,0 +1,62 @@
+"""The folder connector: what it lists, with which fingerprints, and what it refuses."""
+
+from __future__ import annotations
+
+import os
+
+import pytest
+
+from connectors.folder import FolderSource, path_matches
+from pipeline.errors import DocumentUnreadable, SourceUnreachable
+from tests.conftest import write
+
+
+def test_lists_files_with_stat_fingerprints_and_skips_temp_and_hidden(tmp_path):
+    root = tmp_path / "share"
+    for rel in [
+        "manual.md",
+        "procedures/wheel.docx",
+        "procedures/~$wheel.docx",
+        "notes/draft.md~",
+        "notes/.#lock",
+        ".git/config.md",
+        "training/.hidden/x.vtt",
+        "training/a.vtt",
+        "tmp/download.part",
+        "tmp/keep.txt",
+        "a/b/c/deep.srt",
+    ]:
+        write(root / rel, "x")
+    source = FolderSource(name="share", root=root)
+    items = {i.key: i for i in source.list_items()}
+    assert sorted(items) == [
+        "a/b/c/deep.srt",
+        "manual.md",
+        "procedures/wheel.docx",
+        "tmp/keep.txt",
+        "training/a.vtt",
+    ]
+    st = os.stat(root / "manual.md")  # reference: the OS's own stat of the file
+    fp = items["manual.md"].fingerprint
+    assert (fp.size, fp.mtime_ns, fp.inode) == (st.st_size, st.st_mtime_ns, st.st_ino)
+    assert items["manual.md"].doc_id == "share:manual.md"
+
+
+def test_include_and_exclude_patterns(tmp_path):
+    root = tmp_path / "share"
+    for rel in ["a.md", "b.txt", "drafts/c.md", "drafts/keep/d.md"]:
+        write(root / rel, "x")
+    source = FolderSource(name="s", root=root, include=("**/*.md",), exclude=("drafts/*",))
+    assert sorted(i.key for i in source.list_items()) == ["a.md"]
+    assert path_matches("drafts/keep/d.md", ("drafts/*",))
+    assert not path_matches("a.md", ("drafts/*",))
+
+
+def test_missing_root_and_vanished_file_are_errors(tmp_path):
+    with pytest.raises(SourceUnreachable, match="does not exist"):
+        list(FolderSource(name="s", root=tmp_path / "nope").list_items())
+    (tmp_path / "file").write_text("x")
+    with pytest.raises(SourceUnreachable, match="not a folder"):
+        list(FolderSource(name="s", root=tmp_path / "file").list_items())
+    with pytest.raises(DocumentUnreadable, match="vanished"):
+        FolderSource(name="s", root=tmp_path).read("gone.md", 1000)
