@@ -92,9 +92,10 @@ def parse_time(text: str) -> datetime:
 
 
 def commits(store: Store) -> list[Commit]:
-    """Every commit, oldest first (the log's own order: time, then id)."""
+    """Every commit, oldest first. Every commit writes the documents table, so its version
+    orders commits even within one millisecond."""
     rows = store.commits()
-    rows.sort(key=lambda r: (r["time"], r["commit_id"]))
+    rows.sort(key=lambda r: (r["documents_version"], r["time"]))
     return [Commit.from_row(r) for r in rows]
 
 

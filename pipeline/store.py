@@ -343,7 +343,8 @@ class Store:
 
     def commits(self) -> list[dict[str, Any]]:
         rows = self._scan("commits").to_pylist()
-        rows.sort(key=lambda r: r["time"])
+        # Every commit writes the documents table: its version orders commits exactly.
+        rows.sort(key=lambda r: (r["documents_version"], r["time"]))
         return rows
 
     def tombstone_ids(self, ids: Sequence[str]) -> set[str]:

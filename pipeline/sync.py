@@ -125,8 +125,9 @@ def fingerprint_key(fp: Fingerprint) -> str:
 
 
 def new_commit_id() -> str:
-    """Time-ordered and unique: 12 hex digits of milliseconds, then 8 random ones."""
-    return f"{int(time.time() * 1000):012x}{secrets.token_hex(4)}"
+    """20 random hex digits, so a short prefix names one commit (a time-first id made commits
+    a few milliseconds apart share their first ten digits). Order comes from the log itself."""
+    return secrets.token_hex(10)
 
 
 def utc_now() -> str:
