@@ -61,6 +61,8 @@ class DocumentUnreadable(ExtractionError):
 class SourceError(UpwellError):
     """A source as a whole cannot be listed; never treated as an empty source."""
 
+    source: str | None = None  # the source's name, set by the engine
+
 
 class SourceUnreachable(SourceError):
     """The source root is missing, not a folder, or cannot be reached."""

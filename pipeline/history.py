@@ -464,6 +464,7 @@ def finish_rollback(store: Store, intent: dict[str, Any]) -> None:
                 "time": intent["time"],
                 "trigger": f"rollback to {intent['target']}",
                 "sources": json.dumps([]),
+                "source_revision": None,
                 "documents_added": len(intent["come_back"]),
                 "documents_modified": len(intent["change"]),
                 "documents_removed": len(intent["go_away"]),

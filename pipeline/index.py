@@ -30,7 +30,14 @@ from connectors.folder import FolderSource
 
 from . import formats, history, maintenance
 from .embedding import make_embedder
-from .errors import ConfirmationRequired, ModelMismatch, SyncPaused, UnknownVersion, UsageError
+from .errors import (
+    ConfirmationRequired,
+    ModelMismatch,
+    SourceError,
+    SyncPaused,
+    UnknownVersion,
+    UsageError,
+)
 from .history import Commit, Diff, RetentionPlan, RollbackPlan
 from .locking import writer_lock
 from .progress import Progress
@@ -257,19 +264,39 @@ class Index:
                 max_removal_fraction=self.max_removal_fraction,
                 progress=self.progress,
             )
-            report = engine.sync(
-                resolved,
-                yes=yes,
-                confirm=confirm,
-                trigger=trigger,
-                should_stop=should_stop,
-                on_commit=on_commit,
-            )
+            try:
+                report = engine.sync(
+                    resolved,
+                    yes=yes,
+                    confirm=confirm,
+                    trigger=trigger,
+                    should_stop=should_stop,
+                    on_commit=on_commit,
+                )
+            except SourceError as exc:
+                # An unreachable source is not an empty one: nothing changed; status says why.
+                self._record_source_errors(store, {exc.source or "?": str(exc)}, [])
+                raise
+            self._record_source_errors(store, {}, [s.name for s in resolved])
             if locations is not None:
                 store.update_setting("source_locations", locations)
             if report.commits:
                 maintenance.ensure_indexes(store)
             return report
+
+    @staticmethod
+    def _record_source_errors(store: Store, failed: dict[str, str], fine: Sequence[str]) -> None:
+        errors: dict[str, Any] = dict(store.settings().get("source_errors") or {})
+        before = dict(errors)
+        for name in fine:
+            errors.pop(name, None)
+        for name, reason in failed.items():
+            errors[name] = {
+                "reason": reason,
+                "since": errors.get(name, {}).get("since") or utc_now(),
+            }
+        if errors != before:
+            store.update_setting("source_errors", errors)
 
     @staticmethod
     def _as_source(source: str | os.PathLike[str] | Source) -> Source:
@@ -632,6 +659,10 @@ class Index:
             per_source.setdefault(
                 name, {"name": name, "documents": 0, "failed": 0, "chunks": 0, "last_update": None}
             )["chunks"] = n
+        for name, err in (settings.get("source_errors") or {}).items():
+            per_source.setdefault(
+                name, {"name": name, "documents": 0, "failed": 0, "chunks": 0, "last_update": None}
+            )["error"] = err
         last = commits[-1] if commits else None
         return {
             "index": str(self.path),

@@ -235,6 +235,7 @@ def erase_documents(
             "time": now,
             "trigger": "erase",
             "sources": json.dumps(sorted({d["source"] for d in docs.values()})),
+            "source_revision": None,
             "documents_added": 0,
             "documents_modified": 0,
             "documents_removed": len(doc_ids),

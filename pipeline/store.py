@@ -118,6 +118,7 @@ COMMITS_SCHEMA = pa.schema(
         pa.field("time", pa.string()),  # UTC, ISO 8601
         pa.field("trigger", pa.string()),
         pa.field("sources", pa.string()),  # JSON list
+        pa.field("source_revision", pa.string()),  # e.g. the git commit a source was read at
         pa.field("documents_added", pa.int32()),
         pa.field("documents_modified", pa.int32()),
         pa.field("documents_removed", pa.int32()),

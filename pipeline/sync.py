@@ -26,7 +26,7 @@ import pyarrow as pa
 
 from . import formats
 from .chunking import chunk_segments
-from .errors import ConfirmationRequired, ExtractionError
+from .errors import ConfirmationRequired, ExtractionError, SourceError
 from .hashing import sha256_hex
 from .progress import Progress
 from .records import (
@@ -180,6 +180,7 @@ class SyncEngine:
         self.store = store
         # Other indexes built with the same model whose vectors may be reused (rebuild).
         self.vector_sources = list(vector_sources)
+        self._revisions: dict[str, str] = {}
         self.embedder = embedder
         self.chunking = chunking
         self.limits = limits
@@ -207,11 +208,26 @@ class SyncEngine:
         ``interrupted``. ``on_commit`` is called as each commit lands.
         """
         report = SyncReport()
-        listings = [(s, list(s.list_items())) for s in sources]
+        listings = []
+        for source in sources:
+            # A connector that can ask its server "changed since?" (ETag, Last-Modified) gets
+            # the fingerprints stored for its items before it lists them.
+            prime = getattr(source, "prime", None)
+            if prime is not None:
+                known = self.store.documents_of_source(source.name)
+                prime({row["path"]: row["fingerprint"] for row in known.values()})
+            try:
+                listings.append((source, list(source.list_items())))
+            except SourceError as exc:
+                exc.source = source.name  # which source, for status
+                raise
         # A batch killed after its chunks were written but before its document rows leaves
         # chunks the documents table does not know; if the file is then gone, nothing else
         # would remove them. Such a crash shows as a chunks version no commit recorded.
         sweep = self._chunks_changed_since_last_commit()
+        # A source that knows its revision (a git commit) has it written into the commit row.
+        revisions = {s.name: getattr(s, "revision", None) for s, _ in listings}
+        self._revisions = {name: str(rev) for name, rev in revisions.items() if rev}
         for source, items in listings:
             self._sync_source(
                 source,
@@ -546,6 +562,7 @@ class SyncEngine:
                 "time": now,
                 "trigger": trigger,
                 "sources": json.dumps([source_name]),
+                "source_revision": self._revisions.get(source_name),
                 **{f"documents_{k}": v for k, v in counts.documents.items()},
                 **{f"chunks_{k}": v for k, v in counts.chunks.items()},
                 "seconds": seconds,

@@ -500,3 +500,18 @@ def test_should_stop_ends_a_sync_between_batches(tmp_path, hash_embedder):
     assert report.as_dict()["documents"]["added"] == 6
     rest = ix.sync([root]).as_dict()
     assert rest["documents"]["added"] == 1 and not rest["interrupted"]
+
+
+def test_an_unreachable_source_is_reported_in_status_until_it_is_back(
+    tmp_path, small_corpus, hash_embedder
+):
+    ix = make_index(tmp_path, hash_embedder)
+    ix.sync([small_corpus])
+    shutil.move(small_corpus, tmp_path / "away")
+    with pytest.raises(SourceUnreachable):
+        ix.sync([small_corpus])
+    (source,) = ix.status()["sources"]
+    assert "does not exist" in source["error"]["reason"] and source["documents"] == 3
+    shutil.move(tmp_path / "away", small_corpus)
+    ix.sync([small_corpus])
+    assert "error" not in ix.status()["sources"][0]
