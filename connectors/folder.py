@@ -12,10 +12,11 @@ import fnmatch
 import os
 import re
 import stat
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from functools import cached_property, lru_cache
 from pathlib import Path
+from typing import Any
 
 from pipeline.errors import (
     DocumentTooLarge,
@@ -196,3 +197,24 @@ class FolderSource:
             raise DocumentUnreadable("the path is now a folder, not a file") from None
         except OSError as exc:
             raise DocumentUnreadable(f"could not read the file: {exc.strerror or exc}") from None
+
+
+def from_config(
+    name: str, options: Mapping[str, Any], fail: Callable[[str, str], Any], state_dir: Path
+) -> FolderSource:
+    """A ``kind = "folder"`` or ``"polled"`` source: ``path``, ``include``, ``exclude``."""
+    from pipeline import formats
+
+    path = options.get("path")
+    if not isinstance(path, str) or not path:
+        fail("path", "is required: the folder to index")
+    include = tuple(options.get("include", ("**/*",)))
+    extra = tuple(p for p in options.get("exclude", ()) if p not in DEFAULT_EXCLUDE)
+    return FolderSource(
+        name=name,
+        root=Path(str(path)),
+        include=include,
+        # Configured excludes add to the defaults: editor and office temp files stay ignored.
+        exclude=DEFAULT_EXCLUDE + extra,
+        accept=lambda key: formats.media_type_for(key) is not None,
+    )

@@ -80,7 +80,7 @@ def _confirm_on_terminal(message: str) -> bool:
 # --- commands --------------------------------------------------------------------------------
 
 
-def _sync_targets(args: argparse.Namespace) -> list[Any]:
+def _sync_targets(args: argparse.Namespace, index: Index) -> list[Any]:
     """Folders given on the command line, else the configured sources (all, or --source)."""
     if args.paths:
         if args.source:
@@ -93,14 +93,14 @@ def _sync_targets(args: argparse.Namespace) -> list[Any]:
             f"${CONFIG_ENV}) that lists sources"
         )
     if args.source:
-        return [config.source(name).folder_source() for name in args.source]
+        return [config.source(name).connector(index.state_root) for name in args.source]
     if not config.sources:
         raise UsageError(f"config {config.file}: no [[source]] to sync")
-    return [s.folder_source() for s in config.sources]
+    return [s.connector(index.state_root) for s in config.sources]
 
 
 def cmd_sync(args: argparse.Namespace, index: Index) -> int:
-    report = index.sync(_sync_targets(args), yes=args.yes, confirm=_confirm_on_terminal)
+    report = index.sync(_sync_targets(args, index), yes=args.yes, confirm=_confirm_on_terminal)
     data = report.as_dict()
     if args.json:
         _json_out(data)

@@ -23,6 +23,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from connectors import KINDS as CONNECTOR_KINDS
+from connectors import build as build_connector
 from connectors.folder import DEFAULT_EXCLUDE, FolderSource
 
 from . import formats
@@ -32,7 +34,7 @@ CONFIG_ENV = "UPWELL_CONFIG"
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
 _DURATION = re.compile(r"^(?:(\d+)h)?(?:(\d+)m)?(?:(\d+(?:\.\d+)?)s)?$")
 _CLOCK = re.compile(r"^([01]\d|2[0-3]):([0-5]\d)$")
-SOURCE_KINDS = ("folder",)
+SOURCE_KINDS = tuple(CONNECTOR_KINDS)
 
 
 def parse_duration(text: str) -> float:
@@ -49,25 +51,49 @@ def parse_duration(text: str) -> float:
 
 @dataclass(frozen=True)
 class SourceConfig:
-    """One ``[[source]]`` table: a folder, whether it is watched, and its scan schedule."""
+    """One ``[[source]]`` table: which connector, whether it is watched, its scan schedule.
+
+    ``options`` are the kind's own keys (a folder's ``path``, a repository's ``url`` ...);
+    ``connector()`` builds a fresh connector for each sync.
+    """
 
     name: str
-    path: Path
+    path: Path | None = None
     kind: str = "folder"
     watch: bool = True
     every: float | None = None  # seconds between scheduled full scans; None: none
     include: tuple[str, ...] = ("**/*",)
     exclude: tuple[str, ...] = DEFAULT_EXCLUDE
+    options: Mapping[str, Any] = field(default_factory=dict, compare=False)
+    file: Path | None = field(default=None, compare=False)
+
+    def connector(self, state_root: Path | None = None) -> Any:
+        """The connector the engine syncs; only items with a known format are listed.
+
+        ``state_root`` is where connectors keep what they remember between runs (ETags, miss
+        counts, a repository mirror): normally ``<index>/connector-state``.
+        """
+        if self.kind in ("folder", "polled"):
+            return FolderSource(
+                name=self.name,
+                root=self.path or Path("."),
+                include=self.include,
+                exclude=self.exclude,
+                accept=lambda key: formats.media_type_for(key) is not None,
+            )
+
+        def fail(key: str, problem: str) -> Any:
+            raise UsageError(f"config {self.file}: source {self.name!r}.{key} {problem}")
+
+        state = (state_root or Path(".upwell") / "connector-state") / self.name
+        return build_connector(self.kind, self.name, self.options, fail, state)
 
     def folder_source(self) -> FolderSource:
-        """The connector the engine syncs; only files with a known format are listed."""
-        return FolderSource(
-            name=self.name,
-            root=self.path,
-            include=self.include,
-            exclude=self.exclude,
-            accept=lambda key: formats.media_type_for(key) is not None,
-        )
+        """The folder connector of a folder or polled source."""
+        if self.kind not in ("folder", "polled"):
+            raise UsageError(f"source {self.name!r} is a {self.kind} source, not a folder")
+        folder: FolderSource = self.connector()
+        return folder
 
 
 @dataclass(frozen=True)
@@ -243,13 +269,16 @@ def _parse_service(check: _Checker, table: Mapping[str, Any]) -> ServiceConfig:
     )
 
 
+_COMMON_SOURCE_KEYS = ("name", "kind", "watch", "every")
+_FOLDER_KEYS = ("path", "include", "exclude")
+DEFAULT_POLL_EVERY = 15 * 60.0  # a source nothing can watch is scanned this often by default
+
+
 def _parse_source(
     check: _Checker, where: str, table: Mapping[str, Any], base: Path
 ) -> SourceConfig:
-    check.only_keys(where, table, ("name", "kind", "path", "watch", "every", "include", "exclude"))
-    for key in ("name", "path"):
-        if key not in table:
-            check.fail(f"{where}.{key}", "is required")
+    if "name" not in table:
+        check.fail(f"{where}.name", "is required")
     name = check.string(f"{where}.name", table["name"])
     if not _NAME.match(name):
         check.fail(
@@ -260,21 +289,44 @@ def _parse_source(
     kind = check.string(f"{where}.kind", table.get("kind", "folder"))
     if kind not in SOURCE_KINDS:
         check.fail(f"{where}.kind", f"{kind!r} is not a known kind ({', '.join(SOURCE_KINDS)})")
-    return SourceConfig(
-        name=name,
-        kind=kind,
-        path=_resolve(base, check.string(f"{where}.path", table["path"])),
-        watch=check.boolean(f"{where}.watch", table["watch"]) if "watch" in table else True,
-        every=check.duration(f"{where}.every", table["every"]) if "every" in table else None,
-        include=check.patterns(f"{where}.include", table.get("include", ["**/*"])),
-        # Configured excludes add to the defaults: editor and office temp files stay ignored.
-        exclude=DEFAULT_EXCLUDE
-        + tuple(
-            p
-            for p in check.patterns(f"{where}.exclude", table.get("exclude", []))
-            if p not in DEFAULT_EXCLUDE
-        ),
+    watchable = kind == "folder"
+    watch = check.boolean(f"{where}.watch", table["watch"]) if "watch" in table else watchable
+    if watch and not watchable:
+        check.fail(f"{where}.watch", f"a {kind} source cannot be watched; give it `every`")
+    every = check.duration(f"{where}.every", table["every"]) if "every" in table else None
+    if every is None and not watch:
+        every = DEFAULT_POLL_EVERY
+    if kind in ("folder", "polled"):
+        check.only_keys(where, table, _COMMON_SOURCE_KEYS + _FOLDER_KEYS)
+        if "path" not in table:
+            check.fail(f"{where}.path", "is required")
+        return SourceConfig(
+            name=name,
+            kind=kind,
+            path=_resolve(base, check.string(f"{where}.path", table["path"])),
+            watch=watch,
+            every=every,
+            include=check.patterns(f"{where}.include", table.get("include", ["**/*"])),
+            # Configured excludes add to the defaults: editor and office temp files stay ignored.
+            exclude=DEFAULT_EXCLUDE
+            + tuple(
+                p
+                for p in check.patterns(f"{where}.exclude", table.get("exclude", []))
+                if p not in DEFAULT_EXCLUDE
+            ),
+            file=check.file,
+        )
+    options = {k: v for k, v in table.items() if k not in _COMMON_SOURCE_KEYS}
+    source = SourceConfig(
+        name=name, kind=kind, watch=False, every=every, options=options, file=check.file
     )
+
+    def fail(key: str, problem: str) -> Any:
+        return check.fail(f"{where}.{key}", problem)
+
+    # Build it once now, so a bad key is reported when the file is loaded, not at sync time.
+    build_connector(kind, name, options, fail, Path(".upwell-state") / name)
+    return source
 
 
 def _resolve(base: Path, text: str) -> Path:

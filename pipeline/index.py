@@ -144,6 +144,11 @@ class Index:
     # --- opening --------------------------------------------------------------------------------
 
     @property
+    def state_root(self) -> Path:
+        """Where connectors keep what they remember between runs (ETags, mirrors)."""
+        return self.path / "connector-state"
+
+    @property
     def exists(self) -> bool:
         return Store.exists(self.path)
 

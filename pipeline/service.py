@@ -216,7 +216,7 @@ class _SourceEvents(FileSystemEventHandler):
 
     def __init__(self, source: SourceConfig, queue: SettleQueue, on_note: Callable[[], None]):
         self.source = source
-        self.root = source.path
+        self.root = source.path or Path(".")  # only folder sources are watched
         self.queue = queue
         self.on_note = on_note
 
@@ -438,7 +438,7 @@ class Service:
             if observer is not None and not observer.is_alive():
                 self._observers.pop(source.name)  # the watched folder went away
                 observer = None
-            if source.watch and observer is None and source.path.is_dir():
+            if source.watch and observer is None and source.path and source.path.is_dir():
                 self._watch(source)
 
     def _queue_changed(self) -> None:
@@ -523,7 +523,7 @@ class Service:
         started = time.monotonic()
         try:
             result = self.index.sync(
-                [source.folder_source()],
+                [source.connector(self.index.state_root)],
                 trigger=trigger,
                 # Once stopping, no new batch starts; the batch in hand finishes and commits.
                 should_stop=self.stop_event.is_set,

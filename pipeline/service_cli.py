@@ -48,7 +48,7 @@ def cmd_watch(args: argparse.Namespace, index: Index) -> int:
 
 def cmd_verify(args: argparse.Namespace, index: Index) -> int:
     config: Config | None = getattr(args, "config", None)
-    sources: Any = [s.folder_source() for s in config.sources] if config else None
+    sources: Any = [s.connector(index.state_root) for s in config.sources] if config else None
     if args.repair:
         report = repair_index(index, sources, yes=args.yes)
     else:
