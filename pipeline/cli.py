@@ -128,23 +128,7 @@ def cmd_search(args: argparse.Namespace, index: Index) -> int:
         _json_out(
             {
                 "query": args.query,
-                "results": [
-                    {
-                        "score": round(h.score, 6),
-                        "path": h.path,
-                        "source": h.source,
-                        "text": h.text,
-                        "page": h.page,
-                        "page_end": h.page_end,
-                        "heading": h.heading,
-                        "start": h.start,
-                        "end": h.end,
-                        "line_start": h.line_start,
-                        "line_end": h.line_end,
-                        "doc_id": h.doc_id,
-                    }
-                    for h in hits
-                ],
+                "results": [h.as_json() for h in hits],
             }
         )
         return EXIT_OK

@@ -31,20 +31,7 @@ MAX_K = 100
 
 def hit_json(h: Hit) -> dict[str, Any]:
     """One search result with the keys of ``upwell search --json``."""
-    return {
-        "score": round(h.score, 6),
-        "path": h.path,
-        "source": h.source,
-        "text": h.text,
-        "page": h.page,
-        "page_end": h.page_end,
-        "heading": h.heading,
-        "start": h.start,
-        "end": h.end,
-        "line_start": h.line_start,
-        "line_end": h.line_end,
-        "doc_id": h.doc_id,
-    }
+    return h.as_json()
 
 
 class _Reader:

@@ -110,6 +110,24 @@ class Hit:
     def as_dict(self) -> dict[str, Any]:
         return asdict(self)
 
+    def as_json(self) -> dict[str, Any]:
+        """The keys of ``upwell search --json`` and ``GET /search``: anchors that do not apply
+        are null, ``score`` is the cosine similarity, ``start``/``end`` are seconds."""
+        return {
+            "score": round(self.score, 6),
+            "path": self.path,
+            "source": self.source,
+            "text": self.text,
+            "page": self.page,
+            "page_end": self.page_end,
+            "heading": self.heading,
+            "start": self.start,
+            "end": self.end,
+            "line_start": self.line_start,
+            "line_end": self.line_end,
+            "doc_id": self.doc_id,
+        }
+
 
 def _clock(seconds: float) -> str:
     whole = int(seconds)
