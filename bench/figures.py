@@ -413,7 +413,7 @@ def rescan_ratio(bench: Bench) -> Figure:
             f"  wrote {bench.sizes.scan_files} small files in {time.perf_counter() - started:.1f} s"
         )
     source = FolderSource.from_path(
-        tree, accept=lambda key: formats.media_type_for(key) is not None
+        tree, suffixes=formats.SUPPORTED_SUFFIXES
     )
     listed: list[int] = []
     corpora.bare_walk(tree)  # warm the directory cache for both sides alike
