@@ -44,6 +44,7 @@ class Sizes:
     queries: int = 200
     filtered_queries: int = 30
     commits: int = 1_000
+    saves: int = 20
     long_documents: int = 8
     edits_per_kind: int = 50
     raw_embed_sample: int | None = None  # None: every chunk text of the build
@@ -55,6 +56,7 @@ class Sizes:
             rescan_documents=2_000,  # the figure-2 index, unchanged after its incremental sync
             scan_files=20_000,
             commits=100,
+            saves=10,
             long_documents=4,
             edits_per_kind=10,
             raw_embed_sample=1_000,
@@ -412,9 +414,7 @@ def rescan_ratio(bench: Bench) -> Figure:
         bench.log(
             f"  wrote {bench.sizes.scan_files} small files in {time.perf_counter() - started:.1f} s"
         )
-    source = FolderSource.from_path(
-        tree, suffixes=formats.SUPPORTED_SUFFIXES
-    )
+    source = FolderSource.from_path(tree, suffixes=formats.SUPPORTED_SUFFIXES)
     listed: list[int] = []
     corpora.bare_walk(tree)  # warm the directory cache for both sides alike
     scan_seconds = _best_of(3, lambda: listed.append(sum(1 for _ in source.list_items())))
@@ -770,6 +770,104 @@ def many_commits(bench: Bench) -> Figure:
     return Figure("many_commits", value, rows)
 
 
+# --- 8. save to searchable (the service) ------------------------------------------------------
+
+
+def save_to_searchable(bench: Bench) -> Figure:
+    """Seconds from a file saved in a watched folder to /search finding it: ``upwell watch`` as
+    a subprocess with default settings (1 s settle) and the bench's model."""
+    import re
+    import urllib.error
+    import urllib.parse
+    import urllib.request
+
+    share = bench.workdir / "watched-share"
+    share.mkdir(parents=True, exist_ok=True)
+    (share / "first.md").write_text("# First\n\nThe workshop opens at seven.\n")
+    config = bench.workdir / "watch.toml"
+    config.write_text(
+        f'[index]\npath = "{bench.workdir / "watch-index"}"\nmodel = "{bench.model}"\n'
+        f'[server]\nlisten = "127.0.0.1:0"\n[[source]]\nname = "share"\npath = "{share}"\n'
+    )
+    log_path = bench.workdir / "watch.log"
+    repo = Path(__file__).resolve().parents[1]
+    with open(log_path, "wb") as log:
+        proc = subprocess.Popen(
+            [sys.executable, "-m", "pipeline.cli", "--config", str(config), "watch"],
+            cwd=repo,
+            stdout=log,
+            stderr=log,
+        )
+    try:
+
+        def wait(what: str, condition: Callable[[], Any], deadline: float) -> Any:
+            end = time.monotonic() + deadline
+            while time.monotonic() < end:
+                if proc.poll() is not None:
+                    raise RuntimeError(f"upwell watch exited: {log_path.read_text()[-2000:]}")
+                value = condition()
+                if value:
+                    return value
+                time.sleep(0.02)
+            raise RuntimeError(f"gave up waiting for {what}")
+
+        def port() -> int | None:
+            found = re.findall(r"listening on http://127\.0\.0\.1:(\d+)", log_path.read_text())
+            return int(found[-1]) if found else None
+
+        listen = wait("the service to listen", port, 180)
+
+        def found(name: str, text: str) -> bool:
+            query = urllib.parse.urlencode({"q": text, "k": 5})
+            url = f"http://127.0.0.1:{listen}/search?{query}"
+            try:
+                with urllib.request.urlopen(url, timeout=30) as response:
+                    results = json.loads(response.read())["results"]
+            except urllib.error.HTTPError:
+                return False  # 503 until the first commit has made an index to search
+            return any(r["path"] == name for r in results)
+
+        wait("the first sync", lambda: found("first.md", "workshop opens at seven"), 180)
+        topics = [
+            "Set the saddle height so the knee is slightly bent at the bottom of the stroke.",
+            "Replace the chain when the wear gauge drops into the links.",
+            "Inflate the tyre to the pressure printed on its sidewall.",
+            "Bleed the hydraulic brake with mineral oil only.",
+            "Adjust the headset until the fork turns without play.",
+        ]
+        latencies = []
+        for n in range(bench.sizes.saves):
+            name, text = f"note-{n:02d}.md", f"{topics[n % len(topics)]} Note {n}."
+            started = time.monotonic()
+            if n % 2:  # every other save as editors do it: a temp file renamed over the target
+                (share / f".{name}.swp").write_text(f"# Note {n}\n\n{text}\n")
+                os.replace(share / f".{name}.swp", share / name)
+            else:
+                (share / name).write_text(f"# Note {n}\n\n{text}\n")
+            wait(name, lambda name=name, text=text: found(name, text), 60)
+            latencies.append(time.monotonic() - started)
+    finally:
+        proc.terminate()
+        try:
+            proc.wait(timeout=30)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait(timeout=10)
+    p50 = float(np.percentile(latencies, 50))
+    p95 = float(np.percentile(latencies, 95))
+    value = {"p50_s": p50, "p95_s": p95, "saves": len(latencies), "model": bench.model}
+    rows = [
+        (
+            f"save -> found by /search, p50 over {len(latencies)} saves",
+            f"{p50:.2f} s",
+            "< 2 s",
+            _verdict(p50 < 2.0),
+        ),
+        ("  p95", f"{p95:.2f} s", "", "info"),
+    ]
+    return Figure("save_to_searchable", value, rows)
+
+
 FIGURES: dict[str, Callable[[Bench], Figure]] = {
     "edit_locality": edit_locality,
     "incremental_ratio": incremental_ratio,
@@ -778,4 +876,5 @@ FIGURES: dict[str, Callable[[Bench], Figure]] = {
     "search": search,
     "peak_rss_mb": peak_rss_mb,
     "many_commits": many_commits,
+    "save_to_searchable": save_to_searchable,
 }

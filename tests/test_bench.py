@@ -28,6 +28,7 @@ TOY = Sizes(
     queries=20,
     filtered_queries=4,
     commits=3,
+    saves=2,
     long_documents=1,
     edits_per_kind=2,
     raw_embed_sample=None,
