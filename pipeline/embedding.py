@@ -411,6 +411,9 @@ def make_embedder(spec: str | None) -> Embedder:
     ``None`` or ``"default"``: the shared default model. ``"hash"``: :class:`HashEmbedder` (384
     dimensions). ``"onnx:/path/model.onnx"`` or ``"onnx:/path/model.onnx,/path/tokenizer.json"``:
     :class:`OnnxEmbedder` on those files (sha256 recorded, not checked).
+    ``"http:BASE_URL,MODEL[,KEY_ENV]"``: :class:`pipeline.embedding_http.HttpEmbedder`, an
+    OpenAI-compatible ``BASE_URL/v1/embeddings`` endpoint (key read from ``$KEY_ENV``); building
+    it makes no request.
     """
     text = (spec or "default").strip()
     if text == "default":
@@ -426,7 +429,13 @@ def make_embedder(spec: str | None) -> Embedder:
         model_path = Path(os.path.expanduser(paths[0]))
         tokenizer_path = Path(os.path.expanduser(paths[1])) if len(paths) == 2 else None
         return OnnxEmbedder(model_path, tokenizer_path)
+    if text.startswith("http:"):
+        # Imported here: the HTTP embedder imports nothing from this module, and a process that
+        # never asks for it never loads it.
+        from pipeline.embedding_http import from_spec
+
+        return from_spec(text[len("http:") :])
     raise EmbedderError(
-        f"unknown embedder {spec!r}: use 'default', 'hash' or "
-        "'onnx:/path/model.onnx[,/path/tokenizer.json]'"
+        f"unknown embedder {spec!r}: use 'default', 'hash', "
+        "'onnx:/path/model.onnx[,/path/tokenizer.json]' or 'http:BASE_URL,MODEL[,KEY_ENV]'"
     )
