@@ -198,7 +198,9 @@ def build_parser() -> argparse.ArgumentParser:
         metavar="SPEC",
         default=None,
         help="embedding model for a new index: 'default' (bundled all-MiniLM-L6-v2, ONNX), "
-        "'onnx:MODEL.onnx,TOKENIZER.json' for another export, or 'hash' (no model; for tests). "
+        "'onnx:MODEL.onnx,TOKENIZER.json' for another export, "
+        "'http:BASE_URL,MODEL[,KEY_ENV]' for an OpenAI-compatible embeddings service, or 'hash' "
+        "(no model; for tests). "
         "An existing index uses the model it was built with.",
     )
     parser.add_argument(
