@@ -17,6 +17,7 @@ from pipeline.errors import (
     UnsupportedDocument,
 )
 from pipeline.formats.docx import DOCX_TYPE, extract_docx
+from pipeline.formats.html import HTML_TYPE, extract_html
 from pipeline.formats.pdf import PDF_TYPE, extract_pdf, find_pdf_header
 from pipeline.formats.text import (
     MARKDOWN_TYPE,
@@ -32,7 +33,7 @@ __all__ = ["EXTRACTOR_VERSION", "SUPPORTED_SUFFIXES", "extract", "media_type_for
 
 # Bump whenever any extractor's output changes for the same input bytes: the engine compares it
 # with the version stored beside a document's segments and re-extracts when they differ.
-EXTRACTOR_VERSION = "3"
+EXTRACTOR_VERSION = "4"
 
 _MEDIA_TYPES: dict[str, str] = {
     ".pdf": PDF_TYPE,
@@ -43,6 +44,8 @@ _MEDIA_TYPES: dict[str, str] = {
     ".markdown": MARKDOWN_TYPE,
     ".vtt": WEBVTT_TYPE,
     ".srt": SRT_TYPE,
+    ".html": HTML_TYPE,
+    ".htm": HTML_TYPE,
 }
 
 SUPPORTED_SUFFIXES: frozenset[str] = frozenset(_MEDIA_TYPES)
@@ -120,6 +123,12 @@ def extract(name: str, data: bytes, limits: Limits | None = None) -> Extracted:
                 f"not a Word .docx (which is a zip archive); it looks like {describe_content(data)}"
             )
         return extract_docx(data, limits)
+    if media_type == HTML_TYPE:
+        # Any text may be a page (the parser wraps bare text), but not a known binary format.
+        described = describe_content(data)
+        if any(described == description for _, description in _SIGNATURES):
+            raise CorruptDocument(f"not an HTML page; it looks like {described}")
+        return extract_html(data)
     if media_type == WEBVTT_TYPE:
         return extract_webvtt(data)
     if media_type == SRT_TYPE:
