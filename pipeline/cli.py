@@ -310,6 +310,7 @@ def main(argv: Sequence[str] | None = None) -> int:
             args.index or from_config or default_index_path(),
             model=args.model or (args.config.model if args.config else None),
             progress=Progress(enabled=None),
+            storage_options=args.config.index_storage_options if args.config else None,
         )
         return int(args.func(args, index))
     except UpwellError as exc:

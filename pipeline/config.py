@@ -29,6 +29,7 @@ from connectors.folder import DEFAULT_EXCLUDE, FolderSource
 
 from . import formats
 from .errors import UsageError
+from .store import is_remote
 
 CONFIG_ENV = "UPWELL_CONFIG"
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
@@ -79,7 +80,7 @@ class SourceConfig:
                 root=self.path or Path("."),
                 include=self.include,
                 exclude=self.exclude,
-                accept=lambda key: formats.media_type_for(key) is not None,
+                suffixes=formats.SUPPORTED_SUFFIXES,
             )
 
         def fail(key: str, problem: str) -> Any:
@@ -127,8 +128,10 @@ class Config:
     """A whole configuration file, validated."""
 
     file: Path | None
-    index_path: Path | None = None
+    index_path: Path | str | None = None  # a str only for a URI such as "s3://bucket/prefix"
     model: str | None = None
+    # [index] storage_options: passed to LanceDB for an index on object storage.
+    index_storage_options: Mapping[str, str] = field(default_factory=dict, compare=False)
     server: ServerConfig = field(default_factory=ServerConfig)
     service: ServiceConfig = field(default_factory=ServiceConfig)
     sources: tuple[SourceConfig, ...] = ()
@@ -170,10 +173,17 @@ def parse_config(raw: Mapping[str, Any], file: Path | None = None) -> Config:
     check.only_keys("", raw, ("index", "server", "service", "source"))
 
     index = check.table("index", raw.get("index", {}))
-    check.only_keys("index", index, ("path", "model"))
-    index_path = None
+    check.only_keys("index", index, ("path", "model", "storage_options"))
+    index_path: Path | str | None = None
     if "path" in index:
-        index_path = _resolve(base, check.string("index.path", index["path"]))
+        index_text = check.string("index.path", index["path"])
+        # A URI is kept as written; resolving it as a path would fold "s3://" into "s3:/".
+        index_path = index_text if is_remote(index_text) else _resolve(base, index_text)
+    storage_options = _parse_storage_options(
+        check, check.table("index.storage_options", index.get("storage_options", {}))
+    )
+    if storage_options and not isinstance(index_path, str):
+        check.fail("index.storage_options", "applies only to an index.path such as s3://bucket/ix")
     model = check.string("index.model", index["model"]) if "model" in index else None
 
     server = _parse_server(check, check.table("server", raw.get("server", {})))
@@ -195,10 +205,24 @@ def parse_config(raw: Mapping[str, Any], file: Path | None = None) -> Config:
         file=file,
         index_path=index_path,
         model=model,
+        index_storage_options=storage_options,
         server=server,
         service=service,
         sources=tuple(sources),
     )
+
+
+def _parse_storage_options(check: _Checker, table: Mapping[str, Any]) -> dict[str, str]:
+    """LanceDB takes string values only; TOML booleans and numbers are written as strings."""
+    options = {}
+    for key, value in table.items():
+        if isinstance(value, bool):
+            options[key] = "true" if value else "false"
+        elif isinstance(value, (str, int, float)):
+            options[key] = str(value)
+        else:
+            check.fail(f"index.storage_options.{key}", f"must be a string, not {_kind(value)}")
+    return options
 
 
 def _parse_server(check: _Checker, table: Mapping[str, Any]) -> ServerConfig:

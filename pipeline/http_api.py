@@ -37,8 +37,8 @@ def hit_json(h: Hit) -> dict[str, Any]:
 class _Reader:
     """A lock-free view of the index for request threads; sees each new commit."""
 
-    def __init__(self, index_path: Any) -> None:
-        self.index = Index(index_path)
+    def __init__(self, index_path: Any, storage_options: dict[str, str] | None = None) -> None:
+        self.index = Index(index_path, storage_options=storage_options)
         self._lock = threading.Lock()  # one LanceDB handle, one reader at a time
 
     def status(self) -> dict[str, Any]:
@@ -59,7 +59,7 @@ class ApiServer(ThreadingHTTPServer):
         super().__init__(address, _Handler)
         self.service = service
         self.token = token
-        self.reader = _Reader(service.index.path)
+        self.reader = _Reader(service.index.path, service.index.storage_options)
 
 
 class _Handler(BaseHTTPRequestHandler):

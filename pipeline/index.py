@@ -17,7 +17,7 @@ import fnmatch
 import json
 import os
 import re
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import asdict, dataclass
 from datetime import UTC, datetime, timedelta
@@ -39,10 +39,10 @@ from .errors import (
     UsageError,
 )
 from .history import Commit, Diff, RetentionPlan, RollbackPlan
-from .locking import writer_lock
+from .locking import machine_folder, uri_key, writer_lock
 from .progress import Progress
 from .records import ChunkSettings, Extracted, Fingerprint, Limits, SourceItem, segments_from_json
-from .store import FORMAT_VERSION, Store, quote
+from .store import FORMAT_VERSION, Store, is_remote, quote
 from .sync import CommitResult, Source, SyncEngine, SyncReport, new_commit_id, utc_now
 
 DEFAULT_INDEX = ".upwell"
@@ -147,8 +147,13 @@ class Index:
         progress: Progress | None = None,
         batch_documents: int = 200,
         max_removal_fraction: float = 0.5,
+        storage_options: Mapping[str, str] | None = None,
     ) -> None:
-        self.path = Path(path or default_index_path())
+        # A folder is a Path; a URI on object storage (s3://bucket/prefix) stays the string it
+        # was given, since Path would fold its "//". ``storage_options`` reach LanceDB for URIs.
+        where = os.fspath(path or default_index_path())
+        self.path: Path | str = where if is_remote(where) else Path(where)
+        self.storage_options = dict(storage_options or {})
         self._model_spec = model
         self._chunking = chunking
         self.limits = limits or Limits()
@@ -163,17 +168,21 @@ class Index:
 
     @property
     def state_root(self) -> Path:
-        """Where connectors keep what they remember between runs (ETags, mirrors)."""
+        """Where connectors keep what they remember between runs (ETags, mirrors): in the index
+        folder, or for an index on object storage a folder on this machine keyed by its URI
+        (the one machine that writes the index is the one that syncs its sources)."""
+        if isinstance(self.path, str):
+            return machine_folder("connector-state") / uri_key(self.path)
         return self.path / "connector-state"
 
     @property
     def exists(self) -> bool:
-        return Store.exists(self.path)
+        return Store.exists(self.path, self.storage_options)
 
     def store(self) -> Store:
         """The open store, for readers; IndexMissing if there is no index here."""
         if self._store is None:
-            self._store = Store.open(self.path)
+            self._store = Store.open(self.path, self.storage_options)
         return self._store
 
     def embedder(self) -> Any:
@@ -203,7 +212,7 @@ class Index:
 
     def _store_for_writing(self) -> Store:
         if not self.exists:
-            self._store = Store.create(self.path, self._wanted_settings())
+            self._store = Store.create(self.path, self._wanted_settings(), self.storage_options)
             return self._store
         store = self.store()
         have = store.settings()
@@ -331,9 +340,7 @@ class Index:
         match = _NAMED_PATH.match(text)
         if match and not os.path.exists(text):
             name, text = match.group(1), match.group(2)
-        folder = FolderSource.from_path(
-            text, accept=lambda key: formats.media_type_for(key) is not None
-        )
+        folder = FolderSource.from_path(text, suffixes=formats.SUPPORTED_SUFFIXES)
         return dataclasses.replace(folder, name=name) if name else folder
 
     @staticmethod
@@ -526,6 +533,7 @@ class Index:
             limits=self.limits,
             progress=self.progress,
             batch_documents=self.batch_documents,
+            storage_options=self.storage_options,
         )
         if target.exists:
             raise UsageError(f"{target.path} already holds an index; rebuild into a new folder")

@@ -18,7 +18,9 @@ from __future__ import annotations
 
 import json
 import os
-from collections.abc import Iterable, Sequence
+import re
+from collections.abc import Iterable, Mapping, Sequence
+from datetime import timedelta
 from pathlib import Path
 from typing import Any
 
@@ -30,6 +32,45 @@ from .errors import IndexMissing, ModelMismatch, StoreError
 
 FORMAT_VERSION = 1
 _IN_BATCH = 400  # ids per "IN (...)" filter; keeps filter strings short
+_URI = re.compile(r"^[A-Za-z][A-Za-z0-9+.-]*://")
+# How stale a long-lived reader of an index on object storage may be: each read re-checks the
+# latest version once this has passed. A local index is only re-read on ``refresh()``.
+REMOTE_READ_CONSISTENCY = timedelta(seconds=5)
+_S3_ERROR_CODE = re.compile(r"<Code>([A-Za-z]+)</Code>")
+
+
+def is_remote(path: str | os.PathLike[str]) -> bool:
+    """Whether an index path is a URI on object storage (``s3://bucket/prefix``), not a folder."""
+    return bool(_URI.match(os.fspath(path)))
+
+
+def _connect(path: str | os.PathLike[str], storage_options: Mapping[str, str] | None) -> Any:
+    if not is_remote(path):
+        return lancedb.connect(str(path))
+    return lancedb.connect(
+        os.fspath(path),
+        storage_options=dict(storage_options or {}),
+        read_consistency_interval=REMOTE_READ_CONSISTENCY,
+    )
+
+
+def _remote_problem(path: str | os.PathLike[str], exc: Exception) -> StoreError:
+    """LanceDB's object-store error (a long Rust debug string) as one line naming the cause."""
+    text = str(exc)
+    code = _S3_ERROR_CODE.search(text)
+    if code and code.group(1) == "NoSuchBucket":
+        reason = "the bucket does not exist (upwell does not create buckets: create it first)"
+    elif code and code.group(1) in ("AccessDenied", "InvalidAccessKeyId", "SignatureDoesNotMatch"):
+        reason = f"the storage refused the credentials ({code.group(1)})"
+    elif code:
+        reason = f"the storage answered {code.group(1)}"
+    elif "Connect" in text or "dns error" in text:
+        reason = "the storage endpoint cannot be reached"
+    else:
+        reason = text.splitlines()[0][:200] if text else type(exc).__name__
+    return StoreError(
+        f"the index at {path}: {reason}; check index.storage_options or the AWS_* environment"
+    )
 
 
 def quote(value: str) -> str:
@@ -158,25 +199,40 @@ class Store:
     """Tables of one index folder. Readers need no lock; one writer at a time (see ``lock``)."""
 
     def __init__(self, path: str | os.PathLike[str], db: Any, tables: dict[str, Any]) -> None:
-        self.path = str(path)
+        self.path = os.fspath(path)
         self.db = db
         self._t = tables
 
     # --- opening ----------------------------------------------------------------------------
 
     @classmethod
-    def exists(cls, path: str | os.PathLike[str]) -> bool:
-        return (Path(path) / "settings.lance").is_dir()
+    def exists(
+        cls, path: str | os.PathLike[str], storage_options: Mapping[str, str] | None = None
+    ) -> bool:
+        """Whether a complete index is at ``path`` (a folder, or a URI such as s3://bucket/ix).
+
+        For a URI, StoreError when the storage cannot be reached or refuses the credentials:
+        an unreachable index is not a missing one.
+        """
+        if not is_remote(path):
+            return (Path(path) / "settings.lance").is_dir()
+        try:
+            names = _connect(path, storage_options).list_tables().tables
+        except (ValueError, OSError, RuntimeError) as exc:
+            raise _remote_problem(path, exc) from None
+        return "settings" in names
 
     @classmethod
-    def open(cls, path: str | os.PathLike[str]) -> Store:
-        """Open an existing index; IndexMissing when the folder holds none."""
-        if not cls.exists(path):
+    def open(
+        cls, path: str | os.PathLike[str], storage_options: Mapping[str, str] | None = None
+    ) -> Store:
+        """Open an existing index; IndexMissing when the folder (or URI) holds none."""
+        if not cls.exists(path, storage_options):
             raise IndexMissing(
                 f"no upwell index at {path}: run `upwell sync FOLDER` to build one, "
                 "or point --index (or UPWELL_INDEX) at an existing index"
             )
-        db = lancedb.connect(str(path))
+        db = _connect(path, storage_options)
         try:
             tables = {name: db.open_table(name) for name in TABLES}
         except ValueError as exc:  # lancedb: "Table 'x' was not found"
@@ -184,10 +240,21 @@ class Store:
         return cls(path, db, tables)
 
     @classmethod
-    def create(cls, path: str | os.PathLike[str], settings: dict[str, Any]) -> Store:
-        """Create the tables and record the settings the index is built with."""
-        Path(path).mkdir(parents=True, exist_ok=True)
-        db = lancedb.connect(str(path))
+    def create(
+        cls,
+        path: str | os.PathLike[str],
+        settings: dict[str, Any],
+        storage_options: Mapping[str, str] | None = None,
+    ) -> Store:
+        """Create the tables and record the settings the index is built with.
+
+        On object storage the bucket must exist already; nothing is created outside ``path``.
+        """
+        if is_remote(path):
+            cls.exists(path, storage_options)  # a clear StoreError for a missing bucket
+        else:
+            Path(path).mkdir(parents=True, exist_ok=True)
+        db = _connect(path, storage_options)
         dim = int(settings["dimension"])
         tables: dict[str, Any] = {}
         for name, schema, key in (

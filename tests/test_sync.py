@@ -472,7 +472,9 @@ def test_chunks_left_by_a_crash_are_removed_when_their_file_is_gone(
 ):
     ix = make_index(tmp_path, hash_embedder)
     ix.sync([small_corpus])
-    write(small_corpus / "policies" / "loans.md", "# Loan bikes\n\nLoan bikes are free for a day.\n")
+    write(
+        small_corpus / "policies" / "loans.md", "# Loan bikes\n\nLoan bikes are free for a day.\n"
+    )
     monkeypatch.setattr(Store, "upsert_documents", lambda self, *a, **k: 1 / 0)
     with pytest.raises(ZeroDivisionError):
         ix.sync([small_corpus])  # chunks written, document rows not: the process "died"
