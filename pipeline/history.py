@@ -52,12 +52,14 @@ class Commit:
             documents_version=int(row["documents_version"]),
             tombstones_version=int(row["tombstones_version"]),
             sources=tuple(json.loads(row["sources"] or "[]")),
+            # .get: a column added later is absent from commits written before it existed.
             documents={
-                k: int(row[f"documents_{k}"] or 0)
+                k: int(row.get(f"documents_{k}") or 0)
                 for k in ("added", "modified", "removed", "moved", "unchanged", "failed")
             },
             chunks={
-                k: int(row[f"chunks_{k}"] or 0) for k in ("embedded", "reused", "added", "deleted")
+                k: int(row.get(f"chunks_{k}") or 0)
+                for k in ("embedded", "reused", "added", "deleted")
             },
             seconds=float(row["seconds"] or 0.0),
             changes=json.loads(row["changes"] or "{}"),
