@@ -202,6 +202,11 @@ class Store:
         self.path = os.fspath(path)
         self.db = db
         self._t = tables
+        # Settings are read several times per sync and change rarely: cache them until this
+        # process writes one or refresh() looks for other writers. (Not for an index on object
+        # storage, whose handles re-check the latest version by themselves.)
+        self._settings: dict[str, Any] | None = None
+        self._cache_settings = not is_remote(self.path)
 
     # --- opening ----------------------------------------------------------------------------
 
@@ -284,8 +289,11 @@ class Store:
         return self._t[name]
 
     def settings(self) -> dict[str, Any]:
-        rows = self._t["settings"].to_arrow().to_pylist()
-        return {r["key"]: json.loads(r["value"]) for r in rows}
+        """Every setting, decoded. Callers get their own copy to change freely."""
+        if self._settings is None or not self._cache_settings:
+            rows = self._t["settings"].to_arrow().to_pylist()
+            self._settings = {r["key"]: json.loads(r["value"]) for r in rows}
+        return json.loads(json.dumps(self._settings))
 
     def check_settings(self, wanted: dict[str, Any], keys: Sequence[str]) -> None:
         """Raise ModelMismatch naming both sides when the index was built differently."""
@@ -303,6 +311,7 @@ class Store:
 
     def refresh(self) -> None:
         """See writes made by other processes since this store was opened."""
+        self._settings = None
         for table in self._t.values():
             table.checkout_latest()
 
@@ -409,6 +418,14 @@ class Store:
                     found.setdefault(h, v)
         return found
 
+    def last_commit_chunks_version(self) -> int | None:
+        """The chunks version the latest commit recorded (two columns read, not the log)."""
+        rows = self._scan("commits", ["documents_version", "chunks_version"])
+        if rows.num_rows == 0:
+            return None
+        docs = rows["documents_version"].to_pylist()
+        return int(rows["chunks_version"][docs.index(max(docs))].as_py())
+
     def commits(self) -> list[dict[str, Any]]:
         rows = self._scan("commits").to_pylist()
         # Every commit writes the documents table: its version orders commits exactly.
@@ -496,6 +513,7 @@ class Store:
             .when_not_matched_insert_all()
             .execute(table)
         )
+        self._settings = None
 
 
 def _vectors_to_numpy(column: pa.ChunkedArray | pa.Array) -> np.ndarray:

@@ -246,13 +246,13 @@ class SyncEngine:
         return report
 
     def _chunks_changed_since_last_commit(self) -> bool:
-        log = self.store.commits()
+        last = self.store.last_commit_chunks_version()
         current = int(self.store.table("chunks").version)
-        if not log:
+        if last is None:
             return self.store.count("chunks") > 0
         # Maintenance and index builds also make versions; they record the one they left.
         maintained = self.store.settings().get("maintained_chunks_version")
-        return current not in (int(log[-1]["chunks_version"]), maintained)
+        return current not in (last, maintained)
 
     def _sync_source(
         self,
