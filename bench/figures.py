@@ -1,4 +1,4 @@
-"""One function per benchmark figure of issue 3; each returns a ``Figure``.
+"""One function per benchmark figure; each returns a ``Figure``.
 
 Every figure is a count or a ratio of two things measured side by side in the same run, because
 these machines are shared and noisy; absolute times are reported for information only. Timings
