@@ -254,7 +254,7 @@ def build_parser() -> argparse.ArgumentParser:
         "pointing a known source name at a different folder (a share that moved)",
     )
     p.add_argument("--json", action="store_true", help="print the report as JSON")
-    p.set_defaults(func=cmd_sync, writes=True)
+    p.set_defaults(func=cmd_sync)
 
     p = sub.add_parser(
         "search",
@@ -278,7 +278,7 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("--snippet", type=int, default=240, help="characters of text to show")
     p.add_argument("--json", action="store_true", help="print results as JSON")
-    p.set_defaults(func=cmd_search, writes=False)
+    p.set_defaults(func=cmd_search)
 
     p = sub.add_parser(
         "status",
@@ -290,7 +290,7 @@ def build_parser() -> argparse.ArgumentParser:
         formatter_class=_HelpFormatter,
     )
     p.add_argument("--json", action="store_true", help="print status as JSON")
-    p.set_defaults(func=cmd_status, writes=False)
+    p.set_defaults(func=cmd_status)
 
     add_history_commands(sub, _HelpFormatter, _confirm_on_terminal)
     service_cli.register(sub, _HelpFormatter)

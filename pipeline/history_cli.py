@@ -287,9 +287,11 @@ def add_history_commands(sub: Any, formatter: type[argparse.HelpFormatter], conf
     p.add_argument("--into", required=True, metavar="DIR", help="folder of the new index")
     p.add_argument("--as-of", metavar="REF", default=None, help="rebuild the index as at REF")
     p.add_argument("--new-model", metavar="SPEC", default=None, help="model of the new index")
-    p.add_argument("--min-tokens", type=int, default=None)
-    p.add_argument("--max-tokens", type=int, default=None)
-    p.add_argument("--overlap-tokens", type=int, default=None)
+    p.add_argument("--min-tokens", type=int, default=None, help="smallest content-cut chunk")
+    p.add_argument("--max-tokens", type=int, default=None, help="largest chunk (default 200)")
+    p.add_argument(
+        "--overlap-tokens", type=int, default=None, help="context from the previous chunk"
+    )
     p.add_argument("--json", action="store_true", help="print the report as JSON")
     p.set_defaults(func=rebuild_command)
 

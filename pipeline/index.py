@@ -19,7 +19,7 @@ import os
 import re
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
-from dataclasses import asdict, dataclass
+from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
@@ -106,9 +106,6 @@ class Hit:
         elif self.line_start is not None and self.page is None and not self.heading:
             parts.append(f"lines {self.line_start}-{self.line_end}")
         return ", ".join(parts)
-
-    def as_dict(self) -> dict[str, Any]:
-        return asdict(self)
 
     def as_json(self) -> dict[str, Any]:
         """The keys of ``upwell search --json`` and ``GET /search``: anchors that do not apply
@@ -215,20 +212,16 @@ class Index:
             self._store = Store.create(self.path, self._wanted_settings(), self.storage_options)
             return self._store
         store = self.store()
-        have = store.settings()
-        if self._model_spec is not None:
-            store.check_settings({"model_id": self.embedder().model_id}, ["model_id"])
         if self._chunking is not None:
             store.check_settings({"chunking": self._chunking.as_dict()}, ["chunking"])
         else:
-            self._chunking = ChunkSettings(**have["chunking"])
+            self._chunking = ChunkSettings(**store.settings()["chunking"])
         store.check_settings({"model_id": self.embedder().model_id}, ["model_id"])
-        store.refresh()
-        history.complete_pending(store)  # a rollback a crash interrupted is finished first
-        return store
+        return self._open_existing_for_writing()
 
     def _open_existing_for_writing(self) -> Store:
-        """For writers that need an index to exist already (rollback, tag, erase, maintain)."""
+        """The store, up to date, for a writer (the caller holds the lock). A rollback that a
+        crash interrupted is finished first."""
         store = self.store()
         store.refresh()
         history.complete_pending(store)

@@ -7,7 +7,7 @@ database handle, so each stage can be called and tested on its own.
 from __future__ import annotations
 
 import json
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 
 @dataclass(frozen=True)
@@ -34,7 +34,6 @@ LIST_ITEM = "list_item"
 TABLE_ROW = "table_row"
 CUE = "cue"
 HEADING = "heading"
-SEGMENT_KINDS = (PARAGRAPH, LIST_ITEM, TABLE_ROW, CUE, HEADING)
 
 
 @dataclass(frozen=True)
@@ -135,17 +134,6 @@ class ChunkSettings:
 
 
 @dataclass(frozen=True)
-class DocumentOutcome:
-    """What a sync did with one document."""
-
-    doc_id: str
-    path: str
-    outcome: str  # added | modified | removed | moved | unchanged | failed
-    reason: str | None = None
-    moved_from: str | None = None
-
-
-@dataclass(frozen=True)
 class Limits:
     """Input limits that protect memory; settings, with safe defaults."""
 
@@ -153,7 +141,6 @@ class Limits:
     # Total uncompressed size of a .docx's parts, and the largest compression ratio of one part.
     max_inflated_bytes: int = 256 * 1024 * 1024
     max_inflate_ratio: float = 200.0
-    extra: dict[str, int] = field(default_factory=dict)
 
 
 def segments_to_json(segments: tuple[Segment, ...] | list[Segment]) -> str:

@@ -534,25 +534,15 @@ class Service:
             self.index_paused.set()
             return None
         except ConfirmationRequired as exc:
-            self.metrics.record_failure("confirmation")
-            log.error(
-                f"source {source.name!r} not synced: {exc}",
-                extra={"fields": {"event": "failure", "source": source.name, "reason": str(exc)}},
+            self._source_failed(
+                source.name, "confirmation", f"source {source.name!r} not synced", exc
             )
             return None
         except SourceError as exc:
-            self.metrics.record_failure("source_unreachable")
-            log.error(
-                str(exc),
-                extra={"fields": {"event": "failure", "source": source.name, "reason": str(exc)}},
-            )
+            self._source_failed(source.name, "source_unreachable", None, exc)
             return None
         except UpwellError as exc:
-            self.metrics.record_failure("error")
-            log.error(
-                f"source {source.name!r}: {exc}",
-                extra={"fields": {"event": "failure", "source": source.name, "reason": str(exc)}},
-            )
+            self._source_failed(source.name, "error", f"source {source.name!r}", exc)
             return None
         except Exception:
             self.metrics.record_failure("internal")
@@ -571,6 +561,16 @@ class Service:
         except UpwellError:
             pass
         return report
+
+    def _source_failed(
+        self, source: str, reason_class: str, prefix: str | None, exc: Exception
+    ) -> None:
+        """Count a failed sync of a whole source and log one line for it."""
+        self.metrics.record_failure(reason_class)
+        log.error(
+            f"{prefix}: {exc}" if prefix else str(exc),
+            extra={"fields": {"event": "failure", "source": source, "reason": str(exc)}},
+        )
 
     def _log_report(self, source: str, trigger: str, result: SyncReport, seconds: float) -> None:
         """A line per commit of the sync (logged when the sync returns), a line per failure."""

@@ -83,7 +83,7 @@ def register(sub: Any, formatter_class: Any = argparse.HelpFormatter) -> None:
     )
     p.add_argument("file", nargs="?", default="upwell.toml", metavar="FILE")
     p.add_argument("--force", action="store_true", help="overwrite an existing file")
-    p.set_defaults(func=cmd_init, writes=False)
+    p.set_defaults(func=cmd_init)
 
     p = sub.add_parser(
         "watch",
@@ -96,7 +96,7 @@ def register(sub: Any, formatter_class: Any = argparse.HelpFormatter) -> None:
         "exit codes: 0 stopped cleanly, 2 bad configuration, 4 another writer holds the index",
         formatter_class=formatter_class,
     )
-    p.set_defaults(func=cmd_watch, writes=True)
+    p.set_defaults(func=cmd_watch)
 
     p = sub.add_parser(
         "verify",
@@ -114,4 +114,4 @@ def register(sub: Any, formatter_class: Any = argparse.HelpFormatter) -> None:
     p.add_argument("--no-drift", action="store_true", help="skip the comparison with sources")
     p.add_argument("--yes", action="store_true", help="with --repair: do not ask before removals")
     p.add_argument("--json", action="store_true", help="print the report as JSON")
-    p.set_defaults(func=cmd_verify, writes=False)
+    p.set_defaults(func=cmd_verify)

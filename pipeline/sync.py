@@ -368,7 +368,7 @@ class SyncEngine:
             if row is not None and row["content_hash"] == content_hash:
                 # Same bytes under a new fingerprint (touched, copied over, or a failed file put
                 # back as it was): nothing to extract; refresh the row.
-                doc_rows.append(self._touched_row(row, item, fp, commit_id, now))
+                doc_rows.append(self._touched_row(row, item, fp, now))
                 counts.documents["unchanged"] += 1
                 continue
             moved_from = None
@@ -666,7 +666,7 @@ class SyncEngine:
         self.store.add_vectors(table)
 
     def _touched_row(
-        self, row: dict[str, Any], item: SourceItem, fp: str, commit_id: str, now: str
+        self, row: dict[str, Any], item: SourceItem, fp: str, now: str
     ) -> dict[str, Any]:
         return {
             **row,
