@@ -94,11 +94,8 @@ def parse_time(text: str) -> datetime:
 
 
 def commits(store: Store) -> list[Commit]:
-    """Every commit, oldest first. Every commit writes the documents table, so its version
-    orders commits even within one millisecond."""
-    rows = store.commits()
-    rows.sort(key=lambda r: (r["documents_version"], r["time"]))
-    return [Commit.from_row(r) for r in rows]
+    """Every commit, oldest first (in the order ``store.commit_order`` defines)."""
+    return [Commit.from_row(r) for r in store.commits()]
 
 
 # --- refs --------------------------------------------------------------------------------------

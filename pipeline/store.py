@@ -87,6 +87,13 @@ def _batched(values: Sequence[str], size: int = _IN_BATCH) -> Iterable[Sequence[
         yield values[i : i + size]
 
 
+def commit_order(row: dict[str, Any]) -> tuple[int, int, str]:
+    """Sort key of commit rows, oldest first. Table versions only grow and every commit writes
+    the documents or the chunks table (a recovery may write only chunks), so the pair orders
+    commits even within one millisecond; the time breaks what ties remain."""
+    return (int(row["documents_version"]), int(row["chunks_version"]), row["time"])
+
+
 def chunks_schema(dimension: int) -> pa.Schema:
     return pa.schema(
         [
@@ -387,10 +394,13 @@ class Store:
             q = q.where(where, prefilter=True)
         return q.select(columns).limit(k).to_arrow().to_pylist()
 
-    def chunk_doc_ids(self, source: str) -> set[str]:
-        """The doc ids that have chunks in one source."""
-        rows = self._scan("chunks", ["doc_id"], f"source = {quote(source)}")
-        return set(rows["doc_id"].to_pylist())
+    def chunk_doc_ids(self) -> set[str]:
+        """The doc ids that have chunks."""
+        return set(self._scan("chunks", ["doc_id"])["doc_id"].to_pylist())
+
+    def document_ids(self) -> set[str]:
+        """The doc ids that have a document row (searchable or failed)."""
+        return set(self._scan("documents", ["doc_id"])["doc_id"].to_pylist())
 
     def chunk_counts(self) -> dict[str, int]:
         """Number of chunks per source."""
@@ -420,16 +430,14 @@ class Store:
 
     def last_commit_chunks_version(self) -> int | None:
         """The chunks version the latest commit recorded (two columns read, not the log)."""
-        rows = self._scan("commits", ["documents_version", "chunks_version"])
+        rows = self._scan("commits", ["documents_version", "chunks_version", "time"])
         if rows.num_rows == 0:
             return None
-        docs = rows["documents_version"].to_pylist()
-        return int(rows["chunks_version"][docs.index(max(docs))].as_py())
+        return int(max(rows.to_pylist(), key=commit_order)["chunks_version"])
 
     def commits(self) -> list[dict[str, Any]]:
         rows = self._scan("commits").to_pylist()
-        # Every commit writes the documents table: its version orders commits exactly.
-        rows.sort(key=lambda r: (r["documents_version"], r["time"]))
+        rows.sort(key=commit_order)
         return rows
 
     def tombstone_ids(self, ids: Sequence[str]) -> set[str]:

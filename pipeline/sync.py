@@ -221,10 +221,15 @@ class SyncEngine:
             except SourceError as exc:
                 exc.source = source.name  # which source, for status
                 raise
-        # A batch killed after its chunks were written but before its document rows leaves
-        # chunks the documents table does not know; if the file is then gone, nothing else
-        # would remove them. Such a crash shows as a chunks version no commit recorded.
-        sweep = self._chunks_changed_since_last_commit()
+        # A writer killed mid-batch shows as a chunks version no commit recorded. Clean up
+        # after it before anything else, in a commit of its own, so the next crash cannot
+        # hide the first one.
+        recovered = self._recover_interrupted_batch(trigger)
+        if recovered is not None:
+            report.commits.append(recovered)
+            report.counts.add(recovered.counts)
+            if on_commit is not None:
+                on_commit(recovered)
         # A source that knows its revision (a git commit) has it written into the commit row.
         revisions = {s.name: getattr(s, "revision", None) for s, _ in listings}
         self._revisions = {name: str(rev) for name, rev in revisions.items() if rev}
@@ -236,7 +241,6 @@ class SyncEngine:
                 yes=yes,
                 confirm=confirm,
                 trigger=trigger,
-                sweep=sweep,
                 should_stop=should_stop or (lambda: False),
                 on_commit=on_commit,
             )
@@ -244,6 +248,51 @@ class SyncEngine:
                 break
         report.version = int(self.store.table("chunks").version)
         return report
+
+    def _recover_interrupted_batch(self, trigger: str) -> CommitResult | None:
+        """Finish the record of a batch whose writer died before its commit row.
+
+        The write order (chunks, then documents, then the commit row) means such a batch can
+        leave chunks of documents the documents table does not know. If the file was removed
+        while the writer was down, no later sync would ever name it again, and its chunks would
+        stay searchable. So: delete every chunk without a document row, then write a commit row
+        (trigger ``recover:...``) recording the versions as they now are. Until that row lands
+        the versions still disagree, so a crash during recovery is recovered from next time.
+        """
+        if not self._chunks_changed_since_last_commit():
+            return None
+        started = time.monotonic()
+        orphans = sorted(self.store.chunk_doc_ids() - self.store.document_ids())
+        counts = Counts()
+        sources: set[str] = set()
+        version = None
+        if orphans:
+            existing = self.store.chunk_keys(orphans)
+            counts.chunks["deleted"] = sum(len(v) for v in existing.values())
+            sources = {d.split(":", 1)[0] for d in orphans}
+            version = self.store.replace_chunks(
+                chunks_schema(self.embedder.dimension).empty_table(), orphans
+            )
+        commit_id = new_commit_id()
+        versions = self.store.versions()
+        changes: dict[str, list[Any]] = {k: [] for k in OUTCOMES if k != "unchanged"}
+        self.store.add_commit(
+            {
+                "commit_id": commit_id,
+                "time": utc_now(),
+                "trigger": f"recover:{trigger}",
+                "sources": json.dumps(sorted(sources)),
+                "source_revision": None,
+                **{f"documents_{k}": v for k, v in counts.documents.items()},
+                **{f"chunks_{k}": v for k, v in counts.chunks.items()},
+                "seconds": time.monotonic() - started,
+                "chunks_version": versions["chunks"],
+                "documents_version": versions["documents"],
+                "tombstones_version": versions["tombstones"],
+                "changes": json.dumps({**changes, "orphaned": orphans}),
+            }
+        )
+        return CommitResult(commit_id, version or versions["chunks"], counts)
 
     def _chunks_changed_since_last_commit(self) -> bool:
         last = self.store.last_commit_chunks_version()
@@ -263,17 +312,12 @@ class SyncEngine:
         yes: bool,
         confirm: Callable[[str], bool] | None,
         trigger: str,
-        sweep: bool,
         should_stop: Callable[[], bool],
         on_commit: Callable[[CommitResult], None] | None,
     ) -> None:
         known = self.store.documents_of_source(source.name)
         listed = {item.doc_id for item in items}
         removed = [d for d in known if d not in listed]
-        if sweep:
-            # Chunks of documents neither listed nor known: left by a batch that died between
-            # its chunk write and its document rows. They leave with the last batch.
-            removed += sorted(self.store.chunk_doc_ids(source.name) - listed - set(known))
         searchable = [d for d, r in known.items() if r["content_hash"]]
         gone = [d for d in removed if d in known and known[d]["content_hash"]]
         if searchable and len(gone) > self.max_removal_fraction * len(searchable) and not yes:

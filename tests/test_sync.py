@@ -491,6 +491,36 @@ def test_chunks_left_by_a_crash_are_removed_when_their_file_is_gone(
     assert make_index(tmp_path, hash_embedder).sync([small_corpus]).as_dict()["commit"] is None
 
 
+def test_a_second_crash_after_a_commit_does_not_hide_chunks_left_by_the_first(
+    tmp_path, small_corpus, hash_embedder, monkeypatch
+):
+    # Found by the kill -9 test in test_service.py: the clean-up of a crash's chunks ran with a
+    # source's last batch, so a second crash after an earlier batch had committed recorded a
+    # clean version and the orphans stayed searchable for good.
+    ix = make_index(tmp_path, hash_embedder)
+    ix.sync([small_corpus])
+    write(small_corpus / "loans.md", "# Loan bikes\n\nLoan bikes are free for a day.\n")
+    monkeypatch.setattr(Store, "upsert_documents", lambda self, *a, **k: 1 / 0)
+    with pytest.raises(ZeroDivisionError):
+        ix.sync([small_corpus])
+    monkeypatch.undo()
+    (small_corpus / "loans.md").unlink()
+    for p in (small_corpus / "policies" / "returns.md", small_corpus / "notices" / "ECN-0007.txt"):
+        p.write_text(p.read_text() + "\nAn added line about tyre levers.\n")
+    restarted = make_index(tmp_path, hash_embedder, batch_documents=1)
+    landed = []
+    report = restarted.sync([small_corpus], should_stop=lambda: bool(landed), on_commit=landed.append)
+    assert report.interrupted and len(landed) == 1  # the writer "dies" after one commit
+    recovery = restarted.history()[0]
+    assert recovery.trigger == "recover:sync" and recovery.chunks["deleted"] >= 1
+    assert recovery.changes["orphaned"] == ["share:loans.md"]
+    assert "share:loans.md" not in {r["doc_id"] for r in chunk_rows(restarted)}
+    rest = make_index(tmp_path, hash_embedder).sync([small_corpus]).as_dict()
+    assert rest["documents"]["modified"] == 2  # the recovery stopped the sync before either
+    triggers = [c.trigger for c in make_index(tmp_path, hash_embedder).history()]
+    assert triggers.count("recover:sync") == 1
+
+
 def test_should_stop_ends_a_sync_between_batches(tmp_path, hash_embedder):
     root = tmp_path / "many"
     for n in range(7):
