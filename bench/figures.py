@@ -386,8 +386,9 @@ def _large_build(bench: Bench) -> dict[str, Any]:
 
 
 def rescan_ratio(bench: Bench) -> Figure:
-    """A no-change sync of the built source and a list-only scan of the small-file tree, each
-    over a bare os.scandir + stat walk of the same tree in the same run; the worse of the two."""
+    """A no-change sync of a 20,000-document source and a list-only scan of the small-file tree,
+    each over a bare os.scandir + stat walk of the same tree in the same run; the worse of the
+    two. Below 20,000 built documents the source is the small-file tree (see below)."""
     from connectors.folder import FolderSource
     from pipeline import formats
     from pipeline.index import Index
@@ -420,13 +421,51 @@ def rescan_ratio(bench: Bench) -> Figure:
     scan_seconds = _best_of(3, lambda: listed.append(sum(1 for _ in source.list_items())))
     tree_walk_seconds = _best_of(3, lambda: corpora.bare_walk(tree))
     scan_ratio = scan_seconds / tree_walk_seconds
-    worse = max(sync_ratio, scan_ratio)
-    rows = [
+
+    # The figure is defined at 20,000 documents. A --quick run has no 20,000-document build of
+    # the full corpus (hours of embedding), so it indexes the small-file tree instead, with the
+    # hash embedder: a no-change sync embeds nothing, and what it costs per document (a stat,
+    # one documents-table row, one comparison) does not depend on the model or the file's size.
+    tree_sync = None
+    if unchanged < 20_000:
+        tree_index = Index(bench.workdir / f"index-tree-{bench.sizes.scan_files}", model="hash")
+        started = time.perf_counter()
+        tree_index.sync([tree])
+        tree_build = time.perf_counter() - started
+        tree_reports = []
+        tree_sync_seconds = _best_of(3, lambda: tree_reports.append(tree_index.sync([tree])))
+        tree_sync = {
+            "documents": tree_reports[-1].counts.documents["unchanged"],
+            "seconds": tree_sync_seconds,
+            "walk_seconds": tree_walk_seconds,
+            "ratio": tree_sync_seconds / tree_walk_seconds,
+            "build_seconds": tree_build,
+        }
+    headline_sync = tree_sync["ratio"] if tree_sync else sync_ratio
+    worse = max(headline_sync, scan_ratio)
+    rows = []
+    if tree_sync:
+        rows += [
+            (
+                f"no-change sync / walk, {tree_sync['documents']} small docs (hash embedder)",
+                f"{tree_sync['ratio']:.2f}",
+                "<= 2.0",
+                _verdict(tree_sync["ratio"] <= 2.0),
+            ),
+            (
+                "  (info) sync, walk, build",
+                f"{tree_sync['seconds']:.3f} s, {tree_walk_seconds:.3f} s, "
+                f"{tree_sync['build_seconds']:.0f} s",
+                "",
+                "info",
+            ),
+        ]
+    rows += [
         (
             f"no-change sync / walk, {unchanged} docs",
             f"{sync_ratio:.2f}",
-            "<= 2.0",
-            _verdict(sync_ratio <= 2.0),
+            "<= 2.0" if not tree_sync else "",
+            _verdict(sync_ratio <= 2.0) if not tree_sync else "info",
         ),
         (
             "  (info) sync, walk, model load",
@@ -443,8 +482,10 @@ def rescan_ratio(bench: Bench) -> Figure:
         ("  (info) scan, walk", f"{scan_seconds:.3f} s, {tree_walk_seconds:.3f} s", "", "info"),
     ]
     extra = {
-        "rescan_ratio_sync": sync_ratio,
+        "rescan_ratio_sync": headline_sync,
+        "rescan_ratio_sync_built": sync_ratio,
         "rescan_ratio_scan": scan_ratio,
+        "rescan_tree_sync": tree_sync,
         "rescan_detail": {
             "sync_documents": unchanged,
             "scan_files": listed[-1],

@@ -78,6 +78,10 @@ class _Globs:
         )
 
 
+def _accept_all(key: str) -> bool:
+    return True
+
+
 @lru_cache(maxsize=64)
 def _globs(patterns: tuple[str, ...]) -> _Globs:
     return _Globs(patterns)
@@ -101,7 +105,7 @@ class FolderSource:
     root: Path
     include: tuple[str, ...] = ("**/*",)
     exclude: tuple[str, ...] = DEFAULT_EXCLUDE
-    accept: Callable[[str], bool] = field(default=lambda key: True, compare=False)
+    accept: Callable[[str], bool] = field(default=_accept_all, compare=False)
     # File suffixes to list (lower case, with the dot); checked inline, before ``accept``.
     suffixes: frozenset[str] | None = None
 
@@ -161,6 +165,11 @@ class FolderSource:
         # explicit stack, not recursion: each level of nested generators costs every item.
         excluded, included, accept = self._excluded, self._included, self.accept
         source, suffixes = self.name, self.suffixes
+        # The usual case (include everything, exclude by file name only) is one regex match
+        # per file, without the method calls of the general case.
+        by_name_only = included.everything and excluded._paths is None
+        skip_name = excluded._names.match if by_name_only and excluded._names else None
+        accept_all = accept is _accept_all
         stack: list[tuple[str | Path, str]] = [(top, "")]
         while stack:
             folder, prefix = stack.pop()
@@ -186,9 +195,12 @@ class FolderSource:
                         continue
                     if suffixes is not None and name[name.rfind(".") :].lower() not in suffixes:
                         continue
-                    if excluded.file(rel, name) or not included.file(rel, name):
+                    if by_name_only:
+                        if skip_name is not None and skip_name(name):
+                            continue
+                    elif excluded.file(rel, name) or not included.file(rel, name):
                         continue
-                    if not accept(rel):
+                    if not accept_all and not accept(rel):
                         continue
                     st = entry.stat(follow_symlinks=False)
                 except FileNotFoundError:

@@ -307,6 +307,7 @@ class Index:
                 store.update_setting("source_locations", locations)
             if report.commits:
                 maintenance.ensure_indexes(store)
+                maintenance.tidy_small_tables(store)
             return report
 
     @staticmethod

@@ -13,6 +13,7 @@ deletions materialised, and removes every old version that still holds them.
 from __future__ import annotations
 
 import json
+import logging
 import math
 import warnings
 from dataclasses import dataclass, field
@@ -22,6 +23,8 @@ from typing import Any
 from .errors import StoreError
 from .hashing import sha256_hex
 from .store import TABLES, Store, in_filter
+
+log = logging.getLogger(__name__)
 
 # Scalar indexes worth having once a table is this large (smaller tables scan faster).
 SCALAR_INDEX_MIN_ROWS = 5_000
@@ -95,6 +98,37 @@ def compact_and_clean(
             "versions_kept": len(ds.versions()),
         }
     return report
+
+
+# Every commit appends a small fragment to the documents and commits tables, and a rescan reads
+# both whole: measured at 20,000 documents built in batches of 200 (100 fragments), the brief
+# scan of the documents table took 33 ms, and 6 ms once compacted. Compacting them costs about
+# 0.5 s at that size and removes no version, so a sync does it itself past this many fragments.
+TIDY_MIN_FRAGMENTS = 32
+TIDY_TABLES = ("documents", "commits")
+
+
+def tidy_small_tables(store: Store, min_fragments: int = TIDY_MIN_FRAGMENTS) -> list[str]:
+    """Compact the documents and commits tables once either has many fragments.
+
+    Only files are merged: every version stays readable, so history, ``--as-of`` and rollback
+    see no difference. Returns the tables compacted. A failure is logged, never raised: the
+    sync that calls this has already committed.
+    """
+    done = []
+    for name in TIDY_TABLES:
+        table = store.table(name)
+        try:
+            ds = table.to_lance()
+            if len(ds.get_fragments()) < min_fragments:
+                continue
+            ds.optimize.compact_files()
+        except (ValueError, RuntimeError, OSError) as exc:
+            log.warning("could not compact the %s table: %s", name, _first_line(exc))
+            continue
+        table.checkout_latest()
+        done.append(name)
+    return done
 
 
 def _data_files(ds: Any) -> int:

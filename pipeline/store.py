@@ -20,6 +20,7 @@ import json
 import os
 import re
 from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass
 from datetime import timedelta
 from pathlib import Path
 from typing import Any
@@ -27,6 +28,7 @@ from typing import Any
 import lancedb
 import numpy as np
 import pyarrow as pa
+import pyarrow.compute as pc
 
 from .errors import IndexMissing, ModelMismatch, StoreError
 
@@ -143,6 +145,17 @@ DOCUMENTS_SCHEMA = pa.schema(
 
 # Everything but the (large) segments column: what planning a sync needs.
 DOCUMENT_SUMMARY_COLUMNS = [f.name for f in DOCUMENTS_SCHEMA if f.name != "segments"]
+
+
+@dataclass(frozen=True)
+class DocumentBriefs:
+    """Per doc_id of one source: the fingerprint at which its item counts as unchanged (the
+    last good one if the document is ok, the one that failed if it failed) and its content
+    hash (None if it was never searchable)."""
+
+    unchanged_if: dict[str, str | None]
+    content_hash: dict[str, str | None]
+
 
 TOMBSTONES_SCHEMA = pa.schema(
     [
@@ -335,6 +348,50 @@ class Store:
         """Summary rows (no segments) of one source's documents, by doc_id."""
         rows = self._scan("documents", DOCUMENT_SUMMARY_COLUMNS, f"source = {quote(source)}")
         return {r["doc_id"]: r for r in rows.to_pylist()}
+
+    def document_briefs(self, source: str) -> DocumentBriefs:
+        """What a no-change rescan compares, for every document of one source.
+
+        Four narrow columns, combined in Arrow, converted column by column: at 20,000 documents
+        this is several times faster than reading the summary rows.
+        """
+        t = self._scan(
+            "documents",
+            ["doc_id", "status", "fingerprint", "failed_fingerprint", "content_hash"],
+            f"source = {quote(source)}",
+        )
+        status = t["status"]
+        decisive = pc.if_else(
+            pc.equal(status, "ok"),
+            t["fingerprint"],
+            pc.if_else(
+                pc.equal(status, "failed"), t["failed_fingerprint"], pa.scalar(None, pa.string())
+            ),
+        )
+        ids = t["doc_id"].to_pylist()
+        return DocumentBriefs(
+            unchanged_if=dict(zip(ids, decisive.to_pylist(), strict=True)),
+            content_hash=dict(zip(ids, t["content_hash"].to_pylist(), strict=True)),
+        )
+
+    def stored_fingerprints(self, source: str) -> dict[str, str | None]:
+        """Item key -> fingerprint of the last good version, for one source."""
+        t = self._scan("documents", ["path", "fingerprint"], f"source = {quote(source)}")
+        return dict(zip(t["path"].to_pylist(), t["fingerprint"].to_pylist(), strict=True))
+
+    def documents_by_id(self, source: str, doc_ids: Sequence[str]) -> dict[str, dict[str, Any]]:
+        """Summary rows of some of one source's documents, by doc_id."""
+        if not doc_ids:
+            return {}
+        if len(doc_ids) > _IN_BATCH:
+            wanted = set(doc_ids)
+            rows = self.documents_of_source(source)
+            return {d: r for d, r in rows.items() if d in wanted}
+        where = in_filter("doc_id", doc_ids)
+        return {
+            r["doc_id"]: r
+            for r in self._scan("documents", DOCUMENT_SUMMARY_COLUMNS, where).to_pylist()
+        }
 
     def all_documents(self, columns: list[str] | None = None) -> list[dict[str, Any]]:
         return self._scan("documents", columns or DOCUMENT_SUMMARY_COLUMNS).to_pylist()

@@ -214,8 +214,7 @@ class SyncEngine:
             # the fingerprints stored for its items before it lists them.
             prime = getattr(source, "prime", None)
             if prime is not None:
-                known = self.store.documents_of_source(source.name)
-                prime({row["path"]: row["fingerprint"] for row in known.values()})
+                prime(self.store.stored_fingerprints(source.name))
             try:
                 listings.append((source, list(source.list_items())))
             except SourceError as exc:
@@ -315,15 +314,20 @@ class SyncEngine:
         should_stop: Callable[[], bool],
         on_commit: Callable[[CommitResult], None] | None,
     ) -> None:
-        known = self.store.documents_of_source(source.name)
-        listed = {item.doc_id for item in items}
-        removed = [d for d in known if d not in listed]
-        searchable = [d for d, r in known.items() if r["content_hash"]]
-        gone = [d for d in removed if d in known and known[d]["content_hash"]]
-        if searchable and len(gone) > self.max_removal_fraction * len(searchable) and not yes:
+        # Only the few columns that decide "changed?" are read for every document; whole rows
+        # are fetched for the documents that are read again or removed.
+        briefs = self.store.document_briefs(source.name)
+        prefix = source.name + ":"
+        doc_ids = [prefix + item.key for item in items]  # = item.doc_id, built once
+        listed = set(doc_ids)
+        stored_hash = briefs.content_hash
+        removed = [d for d in stored_hash if d not in listed]
+        searchable = sum(1 for h in stored_hash.values() if h)
+        gone = [d for d in removed if stored_hash[d]]
+        if searchable and len(gone) > self.max_removal_fraction * searchable and not yes:
             message = (
                 f"source {source.name!r}: this sync would remove {len(gone)} of its "
-                f"{len(searchable)} documents from the index (more than "
+                f"{searchable} documents from the index (more than "
                 f"{self.max_removal_fraction:.0%}). If the folder is unmounted or moved, stop now."
             )
             if confirm is None or not confirm(message + " Remove them?"):
@@ -333,18 +337,17 @@ class SyncEngine:
 
         to_read: list[SourceItem] = []
         unchanged = 0
-        for item in items:
-            row = known.get(item.doc_id)
-            fp = fingerprint_key(item.fingerprint)
-            if row is not None and (
-                (row["status"] == "ok" and row["fingerprint"] == fp)
-                or (row["status"] == "failed" and row["failed_fingerprint"] == fp)
-            ):
+        unchanged_if = briefs.unchanged_if
+        for doc_id, item in zip(doc_ids, items, strict=True):
+            if unchanged_if.get(doc_id) == fingerprint_key(item.fingerprint):
                 unchanged += 1
-                continue
-            to_read.append(item)
+            else:
+                to_read.append(item)
+        known = self.store.documents_by_id(
+            source.name, [i.doc_id for i in to_read if i.doc_id in stored_hash] + removed
+        )
 
-        removed_by_hash = {known[d]["content_hash"]: d for d in gone}
+        removed_by_hash = {stored_hash[d]: d for d in gone}
         pending_removals = dict.fromkeys(removed)  # ordered set
         batches = [
             to_read[i : i + self.batch_documents]

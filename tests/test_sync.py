@@ -521,6 +521,26 @@ def test_a_second_crash_after_a_commit_does_not_hide_chunks_left_by_the_first(
     assert triggers.count("recover:sync") == 1
 
 
+def test_a_sync_of_many_commits_compacts_the_tables_a_rescan_reads(tmp_path, hash_embedder):
+    from pipeline.maintenance import TIDY_MIN_FRAGMENTS
+
+    root = tmp_path / "many"
+    n = TIDY_MIN_FRAGMENTS + 4
+    for i in range(n):
+        write(root / f"note-{i:02d}.md", f"# Note {i}\n\nWorkshop note {i} about spoke {i}.\n")
+    ix = make_index(tmp_path, hash_embedder, batch_documents=1)
+    report = ix.sync([root])
+    assert len(report.commits) == n
+    store = ix.store()
+    for name in ("documents", "commits"):
+        assert len(store.table(name).to_lance().get_fragments()) < TIDY_MIN_FRAGMENTS, name
+    # Compaction removed no version: the index as of the first commit is still there.
+    first = ix.history()[-1]
+    hits = ix.search("workshop note about a spoke", k=n, as_of=first.id)
+    assert len({h.doc_id for h in hits}) == 1
+    assert len(ix.history()) == n and ix.sync([root]).as_dict()["commit"] is None
+
+
 def test_should_stop_ends_a_sync_between_batches(tmp_path, hash_embedder):
     root = tmp_path / "many"
     for n in range(7):
