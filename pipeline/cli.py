@@ -161,6 +161,10 @@ def cmd_status(args: argparse.Namespace, index: Index) -> int:
             f"source:    {s['name']}: {s['documents']} documents, {s['chunks']} chunks, "
             f"{s['failed']} failed"
         )
+        if "error" in s:
+            print(f"  error:   {s['error']['reason']} (since {s['error']['since']})")
+        for p in s.get("problems", []):
+            print(f"  problem: {p['key']}: {p['problem']} (since {p['since']})")
     lc = st["last_commit"]
     if lc:
         d = lc["documents"]

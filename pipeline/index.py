@@ -303,12 +303,32 @@ class Index:
                 self._record_source_errors(store, {exc.source or "?": str(exc)}, [])
                 raise
             self._record_source_errors(store, {}, [s.name for s in resolved])
+            self._record_source_problems(store, resolved)
             if locations is not None:
                 store.update_setting("source_locations", locations)
             if report.commits:
                 maintenance.ensure_indexes(store)
                 maintenance.tidy_small_tables(store)
             return report
+
+    @staticmethod
+    def _record_source_problems(store: Store, sources: Sequence[Source]) -> None:
+        """Keep, for status, what a listing skipped or kept as it was (a web page that answered
+        500 after its retries, a sitemap entry on another site): the source is reachable, so the
+        sync went on, but these items did not get their latest version."""
+        recorded: dict[str, Any] = dict(store.settings().get("source_problems") or {})
+        before = dict(recorded)
+        for source in sources:
+            problems = getattr(source, "problems", None)
+            if problems is None:
+                continue
+            items = [{"key": key, "problem": problem} for key, problem in problems]
+            if not items:
+                recorded.pop(source.name, None)
+            elif recorded.get(source.name, {}).get("items") != items:
+                recorded[source.name] = {"items": items, "since": utc_now()}
+        if recorded != before:
+            store.update_setting("source_problems", recorded)
 
     @staticmethod
     def _record_source_errors(store: Store, failed: dict[str, str], fine: Sequence[str]) -> None:
@@ -688,6 +708,10 @@ class Index:
             per_source.setdefault(
                 name, {"name": name, "documents": 0, "failed": 0, "chunks": 0, "last_update": None}
             )["error"] = err
+        for name, recorded in (settings.get("source_problems") or {}).items():
+            per_source.setdefault(
+                name, {"name": name, "documents": 0, "failed": 0, "chunks": 0, "last_update": None}
+            )["problems"] = [{**item, "since": recorded["since"]} for item in recorded["items"]]
         last = commits[-1] if commits else None
         return {
             "index": str(self.path),

@@ -21,6 +21,7 @@ from pathlib import Path
 import pytest
 
 from connectors.http import HttpSource, fingerprint_from_key, page_for
+from pipeline.cli import main
 from pipeline.config import parse_config
 from pipeline.errors import SourcePermission, SourceUnreachable, UsageError
 from pipeline.index import Index
@@ -279,7 +280,7 @@ def test_404_keeps_the_document_until_misses_reach_the_limit(site, tmp_path):
     assert all(hit.path != "manual/brakes.html" for hit in index.search("brake pads", k=10))
 
 
-def test_5xx_is_retried_with_backoff_then_the_page_is_kept_as_it_was(site, tmp_path):
+def test_5xx_is_retried_with_backoff_then_the_page_is_kept_as_it_was(site, tmp_path, capsys):
     index = Index(tmp_path / "ix", model="hash")
     index.sync([source_for(site, tmp_path / "state")])
     before = documents(index)
@@ -292,6 +293,14 @@ def test_5xx_is_retried_with_backoff_then_the_page_is_kept_as_it_was(site, tmp_p
     assert report.counts.documents["unchanged"] == len(PAGES)
     assert documents(index) == before
     assert source.problems == [("manual/wheels.html", "HTTP 503 after 3 attempts; kept as it was")]
+    # Recorded where status shows it, until the page answers again.
+    (web,) = index.status()["sources"]
+    assert [(p["key"], p["problem"]) for p in web["problems"]] == source.problems
+    assert main(["--index", str(tmp_path / "ix"), "status"]) == 0
+    assert "problem: manual/wheels.html: HTTP 503 after 3 attempts" in capsys.readouterr().out
+    del site.status["/manual/wheels"]
+    index.sync([source])
+    assert "problems" not in index.status()["sources"][0]
 
 
 def test_every_page_failing_makes_the_source_unreachable_and_keeps_everything(site, tmp_path):
