@@ -509,7 +509,9 @@ def test_a_second_crash_after_a_commit_does_not_hide_chunks_left_by_the_first(
         p.write_text(p.read_text() + "\nAn added line about tyre levers.\n")
     restarted = make_index(tmp_path, hash_embedder, batch_documents=1)
     landed = []
-    report = restarted.sync([small_corpus], should_stop=lambda: bool(landed), on_commit=landed.append)
+    report = restarted.sync(
+        [small_corpus], should_stop=lambda: bool(landed), on_commit=landed.append
+    )
     assert report.interrupted and len(landed) == 1  # the writer "dies" after one commit
     recovery = restarted.history()[0]
     assert recovery.trigger == "recover:sync" and recovery.chunks["deleted"] >= 1
