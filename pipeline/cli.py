@@ -122,6 +122,26 @@ def cmd_sync(args: argparse.Namespace, index: Index) -> int:
     return EXIT_PARTIAL if data["failures"] else EXIT_OK
 
 
+def cmd_remove_source(args: argparse.Namespace, index: Index) -> int:
+    config = args.config
+    if config is not None and any(s.name == args.name for s in config.sources):
+        raise UsageError(
+            f"source {args.name!r} is still in the configuration {config.file}: the next sync "
+            "would add it back; remove its [[source]] first"
+        )
+    report = index.remove_source(args.name, yes=args.yes, confirm=_confirm_on_terminal)
+    data = report.as_dict()
+    if args.json:
+        _json_out(data)
+    else:
+        print(
+            f"removed:   source {args.name!r}: {data['documents']['removed']} documents, "
+            f"{data['chunks']['deleted']} chunks"
+        )
+        print(f"commit:    {data['commit']} (version {data['version']})")
+    return EXIT_OK
+
+
 def cmd_search(args: argparse.Namespace, index: Index) -> int:
     hits = index.search(args.query, k=args.k, source=args.source, as_of=args.as_of)
     if args.json:
@@ -259,6 +279,25 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("--json", action="store_true", help="print the report as JSON")
     p.set_defaults(func=cmd_sync)
+
+    p = sub.add_parser(
+        "remove-source",
+        help="take every document of a source out of the index",
+        description="A sync only looks at the sources it is given, so a source taken out of the "
+        "configuration, or a folder no longer wanted, stays searchable until it is removed "
+        "here. Every document of source NAME leaves the index in one commit, each with a "
+        "tombstone. Says what goes and asks first unless --yes. History keeps the documents: "
+        "`upwell rollback` brings them back, `upwell erase` forgets them for good.",
+        epilog="examples:\n  upwell status                      # lists the sources\n"
+        "  upwell remove-source old-handbook\n  upwell remove-source scans --yes --json\n\n"
+        "exit codes: 0 removed, 2 not confirmed, unknown source or still configured, "
+        "4 another writer is running",
+        formatter_class=_HelpFormatter,
+    )
+    p.add_argument("name", metavar="NAME", help="the source's name, as `upwell status` shows it")
+    p.add_argument("--yes", action="store_true", help="do not ask for confirmation")
+    p.add_argument("--json", action="store_true", help="print the report as JSON")
+    p.set_defaults(func=cmd_remove_source)
 
     p = sub.add_parser(
         "search",

@@ -272,13 +272,7 @@ class Index:
             raise UsageError(f"two sources share a name: {names}; name them apart with NAME=PATH")
         with self.writing():
             store = self._store_for_writing()
-            paused = store.settings().get(history.PAUSED)
-            if paused:
-                raise SyncPaused(
-                    f"syncing is paused since {paused['since']} by the rollback "
-                    f"{paused['commit']} to {paused['rollback_to']}; `upwell resume` lifts the "
-                    "pause (the next sync then re-applies what changed at the sources)"
-                )
+            self._refuse_if_paused(store)
             locations = self._check_locations(store, resolved, yes=yes, confirm=confirm)
             engine = SyncEngine(
                 store,
@@ -310,6 +304,16 @@ class Index:
                 maintenance.ensure_indexes(store)
                 maintenance.tidy_small_tables(store)
             return report
+
+    @staticmethod
+    def _refuse_if_paused(store: Store) -> None:
+        paused = store.settings().get(history.PAUSED)
+        if paused:
+            raise SyncPaused(
+                f"syncing is paused since {paused['since']} by the rollback "
+                f"{paused['commit']} to {paused['rollback_to']}; `upwell resume` lifts the "
+                "pause (the next sync then re-applies what changed at the sources)"
+            )
 
     @staticmethod
     def _record_source_problems(store: Store, sources: Sequence[Source]) -> None:
@@ -514,6 +518,57 @@ class Index:
             commit_id = new_commit_id()
             history.start_rollback(store, plan, commit_id, utc_now(), pause)
             return history.resolve(store, commit_id)
+
+    def remove_source(
+        self,
+        name: str,
+        *,
+        yes: bool = False,
+        confirm: Callable[[str], bool] | None = None,
+    ) -> SyncReport:
+        """Take every document of one source out of the index, as commits with tombstones.
+
+        For a source taken out of the configuration, or a folder no longer wanted: a sync only
+        ever looks at the sources it is given, so their documents would otherwise stay
+        searchable. History keeps them (``rollback`` brings them back, ``erase`` forgets them
+        for good). Says what goes and asks first unless ``yes``.
+        """
+        with self.writing():
+            store = self._open_existing_for_writing()
+            self._refuse_if_paused(store)
+            docs = store.documents_of_source(name)
+            chunks = store.chunk_counts().get(name, 0)
+            if not docs and not chunks:
+                known = sorted({d["source"] for d in store.all_documents(["source"])})
+                raise UsageError(
+                    f"the index has no source named {name!r}; its sources are: "
+                    + (", ".join(known) or "none")
+                )
+            searchable = sum(1 for d in docs.values() if d["content_hash"])
+            message = (
+                f"This takes source {name!r} out of the index: {searchable} documents "
+                f"({chunks} chunks) stop being searchable, and {len(docs) - searchable} failed "
+                "ones are forgotten. Tombstones record the removals and history keeps the "
+                "documents: `upwell rollback` brings them back, `upwell erase` forgets them."
+            )
+            if not yes and (confirm is None or not confirm(message + "\nRemove them?")):
+                raise ConfirmationRequired(message + "\nNothing was changed; re-run with --yes.")
+            engine = SyncEngine(
+                store,
+                self.embedder(),  # deferred: a removal embeds nothing, so no model is loaded
+                self._chunking or ChunkSettings(),
+                self.limits,
+                batch_documents=self.batch_documents,
+                max_removal_fraction=1.0,
+                progress=self.progress,
+            )
+            engine.removal_reason = "source removed"
+            report = engine.sync([_NoItems(name)], yes=True, trigger="remove-source")
+            for key in ("source_locations", "source_errors", "source_problems"):
+                entries = dict(store.settings().get(key) or {})
+                if entries.pop(name, None) is not None:
+                    store.update_setting(key, entries)
+            return report
 
     def resume(self) -> dict[str, Any] | None:
         """Lift a pause set by ``rollback(pause=True)``; None if syncing was not paused."""
@@ -805,3 +860,16 @@ def _commit_summary(row: dict[str, Any]) -> dict[str, Any]:
         },
         "chunks": {k: row[f"chunks_{k}"] for k in ("embedded", "reused", "added", "deleted")},
     }
+
+
+class _NoItems:
+    """A source that lists nothing: syncing it removes everything the index holds of it."""
+
+    def __init__(self, name: str) -> None:
+        self.name = name
+
+    def list_items(self) -> list[SourceItem]:
+        return []
+
+    def read(self, key: str, max_bytes: int) -> bytes:
+        raise AssertionError("a source that lists nothing is never read")

@@ -187,6 +187,7 @@ class SyncEngine:
         self.batch_documents = batch_documents
         self.max_removal_fraction = max_removal_fraction
         self.progress = progress or Progress(enabled=False)
+        self.removal_reason = "gone at source"  # what a tombstone of a removal says
 
     # --- the whole sync -------------------------------------------------------------------------
 
@@ -550,7 +551,7 @@ class SyncEngine:
                     "path": row["path"],
                     "content_hash": row["content_hash"],
                     "removed_at": now,
-                    "reason": "moved" if moved_to else "gone at source",
+                    "reason": "moved" if moved_to else self.removal_reason,
                     "detail": json.dumps({"moved_to": moved_to}) if moved_to else None,
                     "chunk_count": row["chunk_count"],
                     "chunks_version": expected_version,

@@ -12,6 +12,7 @@ from pathlib import Path
 import pytest
 
 from pipeline.cli import main
+from pipeline.index import Index
 from tests.conftest import REPO
 
 
@@ -82,6 +83,53 @@ def test_mass_removal_without_yes_exits_2_and_changes_nothing(tmp_path, small_co
     assert "--yes" in err and "Nothing was changed" in err
     code, out, _ = run(capsys, "--index", ix, "sync", str(small_corpus), "--yes", "--json")
     assert code == 0 and json.loads(out)["documents"]["removed"] == 2
+
+
+def test_remove_source_asks_then_tombstones_every_document_and_rollback_undoes_it(
+    tmp_path, small_corpus, capsys
+):
+    ix = str(tmp_path / "ix")
+    memos = tmp_path / "memos"
+    memos.mkdir()
+    (memos / "memo.md").write_text("# Memo\n\nThe stores close early on Friday.\n")
+    assert run(capsys, "--index", ix, "--model", "hash", "sync", str(small_corpus))[0] == 0
+    assert run(capsys, "--index", ix, "sync", str(memos))[0] == 0
+    before = json.loads(run(capsys, "--index", ix, "status", "--json")[1])
+
+    # Not on a terminal and without --yes: it says what would go, and nothing changes.
+    code, _, err = run(capsys, "--index", ix, "remove-source", "share")
+    assert code == 2 and "3 documents" in err and "Nothing was changed" in err
+    code, _, err = run(capsys, "--index", ix, "remove-source", "nosuch", "--yes")
+    assert code == 2 and "no source named 'nosuch'" in err and "memos, share" in err
+
+    code, out, _ = run(capsys, "--index", ix, "remove-source", "share", "--yes", "--json")
+    assert code == 0 and json.loads(out)["documents"]["removed"] == 3
+    st = json.loads(run(capsys, "--index", ix, "status", "--json")[1])
+    assert [s["name"] for s in st["sources"]] == ["memos"]
+    tombstones = Index(ix).store().table("tombstones").to_arrow().to_pylist()
+    assert sorted(t["path"] for t in tombstones) == sorted(
+        p.relative_to(small_corpus).as_posix() for p in small_corpus.rglob("*") if p.is_file()
+    )
+    assert {t["reason"] for t in tombstones} == {"source removed"}
+    # The folder may now be synced under its name again from anywhere, and a rollback to
+    # the commit before the removal brings the documents back.
+    code, _, _ = run(
+        capsys, "--index", ix, "rollback", before["last_commit"]["id"], "--yes", "--json"
+    )
+    assert code == 0
+    st = json.loads(run(capsys, "--index", ix, "status", "--json")[1])
+    assert st["totals"]["documents"] == before["totals"]["documents"]
+
+
+def test_remove_source_refuses_a_source_still_configured(tmp_path, small_corpus, capsys):
+    config = tmp_path / "upwell.toml"
+    config.write_text(
+        f'[index]\npath = "{tmp_path / "ix"}"\nmodel = "hash"\n\n[[source]]\nname = "share"\n'
+        f'kind = "folder"\npath = "{small_corpus}"\n'
+    )
+    assert run(capsys, "--config", str(config), "sync")[0] == 0
+    code, _, err = run(capsys, "--config", str(config), "remove-source", "share", "--yes")
+    assert code == 2 and "still in the configuration" in err
 
 
 def test_errors_are_one_line_without_traceback(tmp_path, capsys):
