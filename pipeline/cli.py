@@ -223,7 +223,8 @@ def build_parser() -> argparse.ArgumentParser:
         default=None,
         help="embedding model for a new index: 'default' (bundled all-MiniLM-L6-v2, ONNX), "
         "'onnx:MODEL.onnx,TOKENIZER.json' for another export, "
-        "'http:BASE_URL,MODEL[,KEY_ENV]' for an OpenAI-compatible embeddings service, or 'hash' "
+        "'http:BASE_URL,MODEL[,KEY_ENV][,batch=N,concurrency=N,...]' for an OpenAI-compatible "
+        "embeddings service (see README), or 'hash' "
         "(no model; for tests). "
         "An existing index uses the model it was built with.",
     )

@@ -96,15 +96,49 @@ class _Cancelled(Exception):
     """Another batch of the same call failed for good; this one stops at its next wait."""
 
 
-def parse_spec(body: str) -> tuple[str, str, str | None]:
-    """Split the part of a spec after ``http:`` into (base_url, model, key_env or None)."""
+#: Options a spec may add after MODEL (and KEY_ENV) as NAME=VALUE: the spec's name, the
+#: HttpEmbedder argument it sets, and its type.
+SPEC_OPTIONS: dict[str, tuple[str, type]] = {
+    "batch": ("batch_size", int),
+    "batch_tokens": ("max_batch_tokens", int),
+    "concurrency": ("concurrency", int),
+    "timeout": ("timeout", float),
+    "attempts": ("max_attempts", int),
+    "input_tokens": ("max_input_tokens", int),
+}
+_SPEC_USAGE = (
+    "use http:BASE_URL,MODEL[,KEY_ENV][,NAME=VALUE ...] with NAME one of "
+    + ", ".join(SPEC_OPTIONS)
+    + ", for example http:http://127.0.0.1:8080,minilm,EMBED_KEY,batch=32,concurrency=4"
+)
+
+
+def parse_spec(body: str) -> tuple[str, str, str | None, dict[str, Any]]:
+    """Split the part of a spec after ``http:`` into (base_url, model, key_env or None,
+    HttpEmbedder keyword options)."""
     parts = [part.strip() for part in body.split(",")]
-    if len(parts) not in (2, 3) or not all(parts):
-        raise EmbedderError(
-            f"bad embedder spec 'http:{body}': use http:BASE_URL,MODEL[,KEY_ENV], for example "
-            "http:http://127.0.0.1:8080,minilm,EMBED_KEY"
-        )
-    return parts[0], parts[1], parts[2] if len(parts) == 3 else None
+    if len(parts) < 2 or not all(parts):
+        raise EmbedderError(f"bad embedder spec 'http:{body}': {_SPEC_USAGE}")
+    base_url, model, rest = parts[0], parts[1], parts[2:]
+    key_env = None
+    if rest and "=" not in rest[0]:
+        key_env, rest = rest[0], rest[1:]
+    options: dict[str, Any] = {}
+    for part in rest:
+        name, _, value = part.partition("=")
+        if name not in SPEC_OPTIONS or not value:
+            raise EmbedderError(f"bad embedder spec 'http:{body}': {part!r}: {_SPEC_USAGE}")
+        argument, kind = SPEC_OPTIONS[name]
+        try:
+            number = kind(value)
+        except ValueError:
+            raise EmbedderError(
+                f"bad embedder spec 'http:{body}': {name} must be a number, not {value!r}"
+            ) from None
+        if number <= 0:
+            raise EmbedderError(f"bad embedder spec 'http:{body}': {name} must be above 0")
+        options[argument] = number
+    return base_url, model, key_env, options
 
 
 def parse_retry_after(value: str | None, now: float | None = None) -> float | None:
@@ -494,5 +528,5 @@ def _file_sha256(path: str) -> str:
 
 def from_spec(body: str) -> HttpEmbedder:
     """The embedder for the part of a spec after ``http:``; makes no request."""
-    base_url, model, key_env = parse_spec(body)
-    return HttpEmbedder(base_url, model, api_key_env=key_env)
+    base_url, model, key_env, options = parse_spec(body)
+    return HttpEmbedder(base_url, model, api_key_env=key_env, **options)

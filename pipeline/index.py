@@ -216,7 +216,12 @@ class Index:
             store.check_settings({"chunking": self._chunking.as_dict()}, ["chunking"])
         else:
             self._chunking = ChunkSettings(**store.settings()["chunking"])
-        store.check_settings({"model_id": self.embedder().model_id}, ["model_id"])
+        emb = self.embedder()
+        # The input budget decides chunk sizes: changing it would mix two chunkings.
+        store.check_settings(
+            {"model_id": emb.model_id, "max_input_tokens": emb.max_input_tokens},
+            ["model_id", "max_input_tokens"],
+        )
         return self._open_existing_for_writing()
 
     def _open_existing_for_writing(self) -> Store:

@@ -18,7 +18,7 @@ from scipy.spatial.distance import cosine as scipy_cosine_distance
 
 from pipeline.embedding import Embedder, make_embedder
 from pipeline.embedding_http import HttpEmbedder, RetryNotice, parse_retry_after
-from pipeline.errors import EmbedderError
+from pipeline.errors import EmbedderError, ModelMismatch
 from pipeline.index import Index
 from tests.conftest import sentence
 from tests.embedding_server import EmbeddingServer, Fault
@@ -296,6 +296,26 @@ def test_the_spec_gives_model_id_url_and_key_variable(server):
             make_embedder(bad)
 
 
+def test_spec_options_set_the_batching_and_are_checked(server, real_embedder):
+    embedder = make_embedder(
+        f"http:{server.url},{MODEL},MARROWBY_EMBED_KEY,batch=2,concurrency=1,timeout=7.5"
+    )
+    assert (embedder.batch_size, embedder.concurrency, embedder.timeout) == (2, 1, 7.5)
+    assert embedder.api_key_env == "MARROWBY_EMBED_KEY"
+    no_key = make_embedder(f"http:{server.url},{MODEL},batch=3,attempts=2")
+    assert (no_key.api_key_env, no_key.batch_size, no_key.max_attempts) == (None, 3, 2)
+    no_key.embed([sentence(random.Random(n)) for n in range(7)])
+    assert len(server.requests) == 3  # 7 texts, 3 to a request
+    for bad, says in (
+        ("batch=0", "above 0"),
+        ("batch=lots", "must be a number"),
+        ("size=4", "NAME one of batch"),
+        ("batch=", "NAME one of batch"),
+    ):
+        with pytest.raises(EmbedderError, match=says):
+            make_embedder(f"http:{server.url},{MODEL},{bad}")
+
+
 # --- end to end ---------------------------------------------------------------------------------
 
 
@@ -306,6 +326,11 @@ def test_an_index_syncs_and_searches_through_the_http_model(
     index = Index(tmp_path / "ix", model=spec)
     report = index.sync([small_corpus]).as_dict()
     assert report["failures"] == [] and report["documents"]["added"] == 3
+    # Batching options may change between runs; the input budget, which sizes chunks, may not.
+    again = Index(tmp_path / "ix", model=f"{spec},batch=4,concurrency=1")
+    assert again.sync([small_corpus]).as_dict()["commit"] is None
+    with pytest.raises(ModelMismatch, match="max_input_tokens"):
+        Index(tmp_path / "ix", model=f"{spec},input_tokens=100").sync([small_corpus])
     hits = index.search("where is the rear brake hose routed", k=3)
     assert hits[0].path == "notices/ECN-0007.txt"
     assert index.status()["model"]["id"] == f"{server.url}#{MODEL}"
