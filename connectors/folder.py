@@ -159,10 +159,29 @@ class FolderSource:
         self.check_root()
         yield from self._walk(self.root)
 
-    def _walk(self, top: Path) -> Iterator[SourceItem]:
+    def list_changes(
+        self, unchanged_if: Mapping[str, str | None]
+    ) -> tuple[set[str], list[SourceItem]]:
+        """Every accepted key, and the items whose fingerprint key (``sync.fingerprint_key``)
+        is not ``unchanged_if[key]``, in one walk: an unchanged file makes no item at all."""
+        self.check_root()
+        keys: set[str] = set()
+        changed = list(self._walk(self.root, unchanged_if, keys))
+        return keys, changed
+
+    def _walk(
+        self,
+        top: Path,
+        unchanged_if: Mapping[str, str | None] | None = None,
+        keys: set[str] | None = None,
+    ) -> Iterator[SourceItem]:
         # The hot loop of a no-change rescan: one scandir per folder, one lstat per file, and as
         # little Python per entry as possible (measured against a bare scandir+stat walk). An
         # explicit stack, not recursion: each level of nested generators costs every item.
+        # With ``unchanged_if`` every key goes into ``keys`` and only changed files are yielded.
+        compare = unchanged_if is not None and keys is not None
+        stored: Callable[[str], str | None] = unchanged_if.get if compare else dict().get
+        add_key: Callable[[str], None] = keys.add if compare else set().add
         excluded, included, accept = self._excluded, self._included, self.accept
         source, suffixes = self.name, self.suffixes
         # The usual case (include everything, exclude by file name only) is one regex match
@@ -207,6 +226,11 @@ class FolderSource:
                     continue  # gone between the listing and the stat
                 if not stat.S_ISREG(st.st_mode):
                     continue  # symlinks, sockets, devices
+                if compare:
+                    add_key(rel)
+                    # The string sync.fingerprint_key makes of this file's Fingerprint.
+                    if stored(rel) == f"{st.st_size}:{st.st_mtime_ns}:{st.st_ino}:":
+                        continue
                 yield SourceItem(source, rel, Fingerprint(st.st_size, st.st_mtime_ns, st.st_ino))
 
     def read(self, key: str, max_bytes: int) -> bytes:

@@ -149,7 +149,7 @@ DOCUMENT_SUMMARY_COLUMNS = [f.name for f in DOCUMENTS_SCHEMA if f.name != "segme
 
 @dataclass(frozen=True)
 class DocumentBriefs:
-    """Per doc_id of one source: the fingerprint at which its item counts as unchanged (the
+    """Per item key of one source: the fingerprint at which it counts as unchanged (the
     last good one if the document is ok, the one that failed if it failed) and its content
     hash (None if it was never searchable)."""
 
@@ -357,7 +357,7 @@ class Store:
         """
         t = self._scan(
             "documents",
-            ["doc_id", "status", "fingerprint", "failed_fingerprint", "content_hash"],
+            ["path", "status", "fingerprint", "failed_fingerprint", "content_hash"],
             f"source = {quote(source)}",
         )
         status = t["status"]
@@ -368,7 +368,7 @@ class Store:
                 pc.equal(status, "failed"), t["failed_fingerprint"], pa.scalar(None, pa.string())
             ),
         )
-        ids = t["doc_id"].to_pylist()
+        ids = t["path"].to_pylist()
         return DocumentBriefs(
             unchanged_if=dict(zip(ids, decisive.to_pylist(), strict=True)),
             content_hash=dict(zip(ids, t["content_hash"].to_pylist(), strict=True)),

@@ -39,7 +39,7 @@ from .records import (
     segments_from_json,
     segments_to_json,
 )
-from .store import Store, chunks_schema, vectors_schema
+from .store import DocumentBriefs, Store, chunks_schema, vectors_schema
 
 OUTCOMES = ("added", "modified", "removed", "moved", "unchanged", "failed")
 
@@ -122,6 +122,32 @@ class SyncReport:
 
 def fingerprint_key(fp: Fingerprint) -> str:
     return f"{fp.size}:{fp.mtime_ns}:{fp.inode}:{fp.tag}"
+
+
+@dataclass
+class Listing:
+    """A source's listing against the index: every key listed, and the items whose fingerprint
+    is not the one at which the index counts them unchanged (new ones included)."""
+
+    keys: set[str]
+    changed: list[SourceItem]
+
+
+def _list_changes(source: Source, unchanged_if: dict[str, str | None]) -> Listing:
+    """List a source and keep only what changed. A connector may do both in one pass
+    (``list_changes``, as the folder walk does, so an unchanged file costs one stat and one
+    string, not two objects); any other is listed whole and compared here."""
+    fast = getattr(source, "list_changes", None)
+    if fast is not None:
+        keys, changed = fast(unchanged_if)
+        return Listing(keys, changed)
+    keys = set()
+    changed = []
+    for item in source.list_items():
+        keys.add(item.key)
+        if unchanged_if.get(item.key) != fingerprint_key(item.fingerprint):
+            changed.append(item)
+    return Listing(keys, changed)
 
 
 def new_commit_id() -> str:
@@ -211,13 +237,16 @@ class SyncEngine:
         report = SyncReport()
         listings = []
         for source in sources:
+            # Only the few columns that decide "changed?" are read for every document; whole
+            # rows are fetched later for the documents that are read again or removed.
+            briefs = self.store.document_briefs(source.name)
             # A connector that can ask its server "changed since?" (ETag, Last-Modified) gets
             # the fingerprints stored for its items before it lists them.
             prime = getattr(source, "prime", None)
             if prime is not None:
                 prime(self.store.stored_fingerprints(source.name))
             try:
-                listings.append((source, list(source.list_items())))
+                listings.append((source, briefs, _list_changes(source, briefs.unchanged_if)))
             except SourceError as exc:
                 exc.source = source.name  # which source, for status
                 raise
@@ -231,12 +260,13 @@ class SyncEngine:
             if on_commit is not None:
                 on_commit(recovered)
         # A source that knows its revision (a git commit) has it written into the commit row.
-        revisions = {s.name: getattr(s, "revision", None) for s, _ in listings}
+        revisions = {s.name: getattr(s, "revision", None) for s, _, _ in listings}
         self._revisions = {name: str(rev) for name, rev in revisions.items() if rev}
-        for source, items in listings:
+        for source, briefs, listing in listings:
             self._sync_source(
                 source,
-                items,
+                briefs,
+                listing,
                 report,
                 yes=yes,
                 confirm=confirm,
@@ -306,7 +336,8 @@ class SyncEngine:
     def _sync_source(
         self,
         source: Source,
-        items: list[SourceItem],
+        briefs: DocumentBriefs,
+        listing: Listing,
         report: SyncReport,
         *,
         yes: bool,
@@ -315,16 +346,12 @@ class SyncEngine:
         should_stop: Callable[[], bool],
         on_commit: Callable[[CommitResult], None] | None,
     ) -> None:
-        # Only the few columns that decide "changed?" are read for every document; whole rows
-        # are fetched for the documents that are read again or removed.
-        briefs = self.store.document_briefs(source.name)
-        prefix = source.name + ":"
-        doc_ids = [prefix + item.key for item in items]  # = item.doc_id, built once
-        listed = set(doc_ids)
+        prefix = source.name + ":"  # a doc_id is SOURCE:KEY
         stored_hash = briefs.content_hash
-        removed = [d for d in stored_hash if d not in listed]
+        listed = listing.keys
+        removed = [prefix + key for key in stored_hash if key not in listed]
         searchable = sum(1 for h in stored_hash.values() if h)
-        gone = [d for d in removed if stored_hash[d]]
+        gone = [d for d in removed if stored_hash[d[len(prefix) :]]]
         if searchable and len(gone) > self.max_removal_fraction * searchable and not yes:
             message = (
                 f"source {source.name!r}: this sync would remove {len(gone)} of its "
@@ -336,19 +363,13 @@ class SyncEngine:
                     message + " Nothing was changed; re-run with --yes if the removal is intended."
                 )
 
-        to_read: list[SourceItem] = []
-        unchanged = 0
-        unchanged_if = briefs.unchanged_if
-        for doc_id, item in zip(doc_ids, items, strict=True):
-            if unchanged_if.get(doc_id) == fingerprint_key(item.fingerprint):
-                unchanged += 1
-            else:
-                to_read.append(item)
+        to_read = listing.changed
+        unchanged = len(listed) - len(to_read)
         known = self.store.documents_by_id(
-            source.name, [i.doc_id for i in to_read if i.doc_id in stored_hash] + removed
+            source.name, [i.doc_id for i in to_read if i.key in stored_hash] + removed
         )
 
-        removed_by_hash = {stored_hash[d]: d for d in gone}
+        removed_by_hash = {stored_hash[d[len(prefix) :]]: d for d in gone}
         pending_removals = dict.fromkeys(removed)  # ordered set
         batches = [
             to_read[i : i + self.batch_documents]

@@ -60,3 +60,40 @@ def test_missing_root_and_vanished_file_are_errors(tmp_path):
         list(FolderSource(name="s", root=tmp_path / "file").list_items())
     with pytest.raises(DocumentUnreadable, match="vanished"):
         FolderSource(name="s", root=tmp_path).read("gone.md", 1000)
+
+
+@pytest.mark.parametrize("exclude", [None, ("**/drafts/**", "**/*.tmp")])
+def test_the_one_pass_change_listing_agrees_with_listing_then_comparing(tmp_path, exclude):
+    from pipeline.sync import fingerprint_key
+
+    root = tmp_path / "share"
+    for n in range(30):
+        write(root / f"bay-{n % 4}" / f"note-{n:02d}.md", f"# Note {n}\n\nSpokes for wheel {n}.\n")
+    write(root / "drafts" / "plan.md", "# Plan\n")
+    write(root / "scratch.tmp", "scratch")
+    source = FolderSource(name="share", root=root)
+    if exclude is not None:
+        source = FolderSource(name="share", root=root, exclude=exclude)
+    stored = {i.key: fingerprint_key(i.fingerprint) for i in source.list_items()}
+    # Since the "last sync": two edits (one keeps its size), one new file, one removal, and
+    # one document whose stored fingerprint is None (never read successfully).
+    (root / "bay-0" / "note-00.md").write_text("# Note 0\n\nSpokes for wheel 0, trued.\n")
+    path = root / "bay-1" / "note-01.md"
+    st = path.stat()
+    os.utime(path, ns=(st.st_atime_ns, st.st_mtime_ns + 1_000_000))
+    write(root / "bay-2" / "note-new.md", "# New\n")
+    (root / "bay-3" / "note-03.md").unlink()
+    stored["bay-2/note-02.md"] = None
+
+    keys, changed = source.list_changes(stored)
+    expected = [
+        i for i in source.list_items() if stored.get(i.key) != fingerprint_key(i.fingerprint)
+    ]
+    assert keys == {i.key for i in source.list_items()}
+    assert changed == expected
+    assert sorted(i.key for i in changed) == [
+        "bay-0/note-00.md",
+        "bay-1/note-01.md",
+        "bay-2/note-02.md",
+        "bay-2/note-new.md",
+    ]

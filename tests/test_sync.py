@@ -276,10 +276,10 @@ def test_new_bad_documents_are_reported_and_the_rest_is_indexed(
 class VanishingFolder(FolderSource):
     """A real folder source whose file disappears between listing and reading."""
 
-    def list_items(self):
-        items = list(super().list_items())
+    def list_changes(self, unchanged_if):
+        listing = super().list_changes(unchanged_if)
         (self.root / "notices" / "ECN-0007.txt").unlink()
-        return items
+        return listing
 
 
 def test_file_vanishing_between_listing_and_reading_is_a_failure(
