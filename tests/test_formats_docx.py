@@ -8,9 +8,11 @@ import zipfile
 
 import docx
 import docx2txt
+import pytest
 from docx.oxml import OxmlElement, parse_xml
 from docx.oxml.ns import nsdecls, qn
 
+from pipeline.errors import CorruptDocument
 from pipeline.formats import extract
 from pipeline.formats.text import normalise_text
 from pipeline.records import HEADING, LIST_ITEM, PARAGRAPH, TABLE_ROW
@@ -657,3 +659,132 @@ def test_moves_hyphens_symbols_and_nested_fields_read_as_the_final_document_show
     assert texts == [expected for _, _, expected in _READER_ONLY_PARAGRAPHS]
     # Reference: zipfile + xml.etree reading per ECMA-376 Part 1 (``_reader_text``; from memory).
     assert texts == _xml_units(data)
+
+
+# --- footnotes and endnotes (ECMA-376 Part 1, 17.11; from memory) ------------------------------
+
+_NOTES_TYPES = {
+    "footnotes": "application/vnd.openxmlformats-officedocument.wordprocessingml.footnotes+xml",
+    "endnotes": "application/vnd.openxmlformats-officedocument.wordprocessingml.endnotes+xml",
+}
+
+
+def _notes_part(kind: str, notes: dict[str, list[str]]) -> bytes:
+    tag = kind[:-1]  # w:footnote / w:endnote
+    body = "".join(  # the separator and continuation separator Word always writes
+        f'<w:{tag} w:type="{t}" w:id="{i}"><w:p><w:r><w:separator/></w:r></w:p></w:{tag}>'
+        for i, t in (("-1", "separator"), ("0", "continuationSeparator"))
+    )
+    for note_id, paragraphs in notes.items():
+        body += (
+            f'<w:{tag} w:id="{note_id}">'
+            + "".join(
+                f'<w:p><w:r><w:t xml:space="preserve">{text}</w:t></w:r></w:p>'
+                for text in paragraphs
+            )
+            + f"</w:{tag}>"
+        )
+    return (
+        f'<?xml version="1.0" encoding="UTF-8"?><w:{kind} {nsdecls("w")}>{body}</w:{kind}>'.encode()
+    )
+
+
+def _reference(kind: str, note_id: str):
+    return parse_xml(f'<w:r {nsdecls("w")}><w:{kind}Reference w:id="{note_id}"/></w:r>')
+
+
+def _with_notes(data: bytes, parts: dict[str, dict[str, list[str]]]) -> bytes:
+    """``data`` with footnotes/endnotes parts added, as Word lays them out: the part, its content
+    type override and a relationship from the main document (ECMA-376 Part 2, OPC)."""
+    out = io.BytesIO()
+    with zipfile.ZipFile(io.BytesIO(data)) as src, zipfile.ZipFile(out, "w") as dst:
+        for item in src.infolist():
+            content = src.read(item.filename)
+            if item.filename == "[Content_Types].xml":
+                overrides = "".join(
+                    f'<Override PartName="/word/{k}.xml" ContentType="{_NOTES_TYPES[k]}"/>'
+                    for k in parts
+                )
+                content = content.replace(b"</Types>", overrides.encode() + b"</Types>")
+            elif item.filename == "word/_rels/document.xml.rels":
+                rels = "".join(
+                    f'<Relationship Id="rIdNotes{k}" Target="{k}.xml" Type="http://schemas.'
+                    f'openxmlformats.org/officeDocument/2006/relationships/{k}"/>'
+                    for k in parts
+                )
+                content = content.replace(b"</Relationships>", rels.encode() + b"</Relationships>")
+            dst.writestr(item, content)
+        for kind, notes in parts.items():
+            dst.writestr(f"word/{kind}.xml", _notes_part(kind, notes))
+    return out.getvalue()
+
+
+def _brake_notes_docx() -> bytes:
+    document = docx.Document()
+    document.add_heading("Brake bleeding", level=1)
+    first = document.add_paragraph("Bleed the rear hose with the lever at full reach.")
+    first._p.append(_reference("footnote", "7"))
+    table = document.add_table(rows=1, cols=2)
+    table.rows[0].cells[0].text = "Fluid"
+    table.rows[0].cells[1].text = "mineral oil"
+    table.rows[0].cells[1].paragraphs[0]._p.append(_reference("footnote", "3"))
+    document.add_heading("Disposal", level=1)
+    last = document.add_paragraph("Collect the old fluid in the marked drum.")
+    last._p.append(_reference("endnote", "1"))
+    last._p.append(_reference("footnote", "7"))  # a second reference to the first note
+    buffer = io.BytesIO()
+    document.save(buffer)
+    return _with_notes(
+        buffer.getvalue(),
+        {
+            "footnotes": {
+                "3": ["Never mix mineral oil with DOT fluid."],
+                "7": ["Reach is set with the 2 mm grub screw.", "Check it after every bleed."],
+                "9": ["A note nothing references."],
+            },
+            "endnotes": {"1": ["The drum is emptied by the depot on Fridays."]},
+        },
+    )
+
+
+def _xml_notes(data: bytes, kind: str) -> dict[str, list[str]]:
+    """Reference: the w:t runs of each normal note's paragraphs, read with xml.etree."""
+    with zipfile.ZipFile(io.BytesIO(data)) as archive:
+        root = ElementTree.fromstring(archive.read(f"word/{kind}.xml"))
+    return {
+        note.get(f"{W}id"): [
+            "".join(t.text or "" for t in p.iter(f"{W}t")) for p in note.iter(f"{W}p")
+        ]
+        for note in root
+        if note.get(f"{W}type") is None
+    }
+
+
+def test_footnotes_and_endnotes_follow_their_first_reference_under_its_heading():
+    data = _brake_notes_docx()
+    segments = extract("bleeding.docx", data).segments
+    footnotes, endnotes = _xml_notes(data, "footnotes"), _xml_notes(data, "endnotes")
+    assert [(s.text, s.anchor.heading) for s in segments] == [
+        ("Brake bleeding", "Brake bleeding"),
+        ("Bleed the rear hose with the lever at full reach.", "Brake bleeding"),
+        ("Footnote 1: " + footnotes["7"][0], "Brake bleeding"),
+        (footnotes["7"][1], "Brake bleeding"),
+        ("Fluid | mineral oil", "Brake bleeding"),
+        ("Footnote 2: " + footnotes["3"][0], "Brake bleeding"),
+        ("Disposal", "Disposal"),
+        ("Collect the old fluid in the marked drum.", "Disposal"),
+        ("Endnote 1: " + endnotes["1"][0], "Disposal"),
+    ]
+    assert all(s.kind == PARAGRAPH for s in segments if ": " in s.text and "Note" in s.text)
+    assert not any("nothing references" in s.text for s in segments)
+
+
+def test_a_damaged_notes_part_is_a_clear_failure():
+    data = _brake_notes_docx()
+    out = io.BytesIO()
+    with zipfile.ZipFile(io.BytesIO(data)) as src, zipfile.ZipFile(out, "w") as dst:
+        for item in src.infolist():
+            content = src.read(item.filename)
+            dst.writestr(item, content[:40] if item.filename == "word/footnotes.xml" else content)
+    with pytest.raises(CorruptDocument, match="notes part"):
+        extract("bleeding.docx", out.getvalue())

@@ -33,7 +33,7 @@ __all__ = ["EXTRACTOR_VERSION", "SUPPORTED_SUFFIXES", "extract", "media_type_for
 
 # Bump whenever any extractor's output changes for the same input bytes: the engine compares it
 # with the version stored beside a document's segments and re-extracts when they differ.
-EXTRACTOR_VERSION = "4"
+EXTRACTOR_VERSION = "5"  # 5: .docx footnotes and endnotes
 
 _MEDIA_TYPES: dict[str, str] = {
     ".pdf": PDF_TYPE,

@@ -23,6 +23,14 @@ follow that paragraph as PARAGRAPH segments (table rows inside them as TABLE_ROW
 modern text box twice, as DrawingML in ``mc:Choice`` and as VML in ``mc:Fallback`` (ECMA-376
 Part 3, markup compatibility); the fallback copy is skipped when a choice holds the text box.
 
+Footnotes and endnotes (``word/footnotes.xml``, ``word/endnotes.xml``; ECMA-376 Part 1, 17.11;
+from memory) follow the paragraph, table or text box that first references them
+(``w:footnoteReference`` / ``w:endnoteReference``), as PARAGRAPH segments under the same heading
+path, each paragraph starting "Footnote N:" or "Endnote N:", N counting references in document
+order as Word numbers them. Separator notes (``w:type`` set) carry no text and are skipped; a
+note nothing references is not shown by Word and is not read. Headers and footers are not read:
+they repeat on every page and are mostly page furniture.
+
 Paragraph text is read from the paragraph's XML by ``paragraph_text`` rather than with
 python-docx's ``Paragraph.text``, which joins only runs and hyperlinks that are direct children of
 the paragraph and so loses tracked insertions, inline content controls, smart tags, simple fields
@@ -40,6 +48,8 @@ from typing import Any
 
 import docx
 from docx.document import Document as WordDocument
+from docx.opc.constants import RELATIONSHIP_TYPE as RT
+from docx.oxml import parse_xml
 from docx.oxml.ns import qn
 from docx.oxml.xmlchemy import BaseOxmlElement
 from docx.table import Table, _Cell
@@ -80,6 +90,13 @@ _CONTENT_CONTROL_TAG = qn("w:sdt")
 _CONTENT_CONTROL_CONTENT_TAG = qn("w:sdtContent")
 _CUSTOM_XML_TAG = qn("w:customXml")
 _TEXT_BOX_TAG = qn("w:txbxContent")
+_ID_ATTRIBUTE = qn("w:id")
+_TYPE_ATTRIBUTE = qn("w:type")
+# (relationship type, note element, reference element, label) of the two kinds of notes.
+_NOTE_KINDS = (
+    (RT.FOOTNOTES, qn("w:footnote"), qn("w:footnoteReference"), "Footnote"),
+    (RT.ENDNOTES, qn("w:endnote"), qn("w:endnoteReference"), "Endnote"),
+)
 # Elements of paragraph content, ECMA-376 Part 1 (from memory): run content 17.3.3, revisions
 # 17.13.5, fields and hyperlinks 17.16, smart tags and custom XML 17.5.1, content controls 17.5.2.
 _TEXT_TAG = qn("w:t")
@@ -367,6 +384,43 @@ def _iter_text_boxes(paragraph: Paragraph) -> Iterator[BaseOxmlElement]:
             yield text_box
 
 
+class _Notes:
+    """The footnotes and endnotes of a document, handed out once each, in reference order."""
+
+    def __init__(self, document: WordDocument) -> None:
+        self._by_reference: dict[str, tuple[str, dict[str, BaseOxmlElement]]] = {}
+        self._numbers = {label: 0 for *_, label in _NOTE_KINDS}
+        self._seen: set[tuple[str, str]] = set()
+        for rel in document.part.rels.values():
+            for reltype, note_tag, reference_tag, label in _NOTE_KINDS:
+                if rel.reltype != reltype or rel.is_external:
+                    continue
+                root = parse_xml(rel.target_part.blob)
+                notes = {
+                    note.get(_ID_ATTRIBUTE): note
+                    for note in root.iterchildren(note_tag)
+                    if note.get(_TYPE_ATTRIBUTE) in (None, "normal")
+                }
+                self._by_reference[reference_tag] = (label, notes)
+
+    def referenced_in(self, element: BaseOxmlElement) -> Iterator[tuple[str, list[str]]]:
+        """(label with number, paragraph texts) of each note first referenced in ``element``."""
+        if not self._by_reference:
+            return
+        for reference in element.iter(*self._by_reference):
+            label, notes = self._by_reference[reference.tag]
+            note_id = reference.get(_ID_ATTRIBUTE)
+            note = notes.get(note_id)
+            if note is None or (label, note_id) in self._seen:
+                continue
+            self._seen.add((label, note_id))
+            self._numbers[label] += 1
+            texts = [normalise_text(paragraph_text(p)) for p in note.iter(_PARAGRAPH_TAG)]
+            texts = [t for t in texts if t]
+            if texts:
+                yield f"{label} {self._numbers[label]}", texts
+
+
 def _cell_text(cell: _Cell) -> str:
     """Text of a cell, including content controls and any table nested inside it."""
     parts: list[str] = []
@@ -395,6 +449,11 @@ def extract_docx(data: bytes, limits: Limits) -> Extracted:
     paragraph that anchors them, as paragraphs under the same heading path.
     """
     document = _open_checked(data, limits)
+    try:
+        notes = _Notes(document)
+    except (KeyError, ValueError, AttributeError, SyntaxError) as error:  # lxml: SyntaxError
+        kind = type(error).__name__
+        raise CorruptDocument(f"damaged .docx notes part ({kind}: {error})") from error
     segments: list[Segment] = []
     heading_stack: list[tuple[int, str]] = []
     title = normalise_text(document.core_properties.title or "") or None
@@ -402,11 +461,18 @@ def extract_docx(data: bytes, limits: Limits) -> Extracted:
     def current_path() -> str | None:
         return " > ".join(text for _, text in heading_stack) or None
 
+    def add_notes(element: BaseOxmlElement) -> None:
+        for label, texts in notes.referenced_in(element):
+            for n, text in enumerate(texts):
+                text = f"{label}: {text}" if n == 0 else text
+                segments.append(Segment(text, Anchor(heading=current_path()), PARAGRAPH))
+
     def add_table(table: Table) -> None:
         for row in table.rows:
             text = _row_text(row.cells)
             if text:
                 segments.append(Segment(text, Anchor(heading=current_path()), TABLE_ROW))
+        add_notes(table._tbl)
 
     def add_text_boxes(anchor: Paragraph) -> None:
         # A text box is a side note: its paragraphs never open a heading or a list.
@@ -418,6 +484,7 @@ def extract_docx(data: bytes, limits: Limits) -> Extracted:
                 text = normalise_text(paragraph_text(block._p))
                 if text:
                     segments.append(Segment(text, Anchor(heading=current_path()), PARAGRAPH))
+                add_notes(block._p)
 
     try:
         for block in _iter_blocks(document.element.body, document):
@@ -436,6 +503,8 @@ def extract_docx(data: bytes, limits: Limits) -> Extracted:
                     title = text
                 kind = LIST_ITEM if _is_list_item(block) else PARAGRAPH
                 segments.append(Segment(text, Anchor(heading=current_path()), kind))
+            # The paragraph's notes (a text box's too: the element holds it) before its boxes.
+            add_notes(block._p)
             # Also after an empty paragraph: one that holds only a drawing still anchors it.
             add_text_boxes(block)
     except (KeyError, ValueError, AttributeError, IndexError) as error:
