@@ -43,7 +43,15 @@ from .locking import machine_folder, uri_key, writer_lock
 from .progress import Progress
 from .records import ChunkSettings, Extracted, Fingerprint, Limits, SourceItem, segments_from_json
 from .store import FORMAT_VERSION, Store, is_remote, quote
-from .sync import CommitResult, Source, SyncEngine, SyncReport, new_commit_id, utc_now
+from .sync import (
+    CommitResult,
+    Source,
+    SyncEngine,
+    SyncReport,
+    new_commit_id,
+    recover_interrupted_batch,
+    utc_now,
+)
 
 DEFAULT_INDEX = ".upwell"
 _NAMED_PATH = re.compile(r"^([A-Za-z0-9][A-Za-z0-9_.-]*)=(.+)$")
@@ -222,14 +230,18 @@ class Index:
             {"model_id": emb.model_id, "max_input_tokens": emb.max_input_tokens},
             ["model_id", "max_input_tokens"],
         )
-        return self._open_existing_for_writing()
+        return self._open_existing_for_writing(recover=None)
 
-    def _open_existing_for_writing(self) -> Store:
+    def _open_existing_for_writing(self, recover: str | None) -> Store:
         """The store, up to date, for a writer (the caller holds the lock). A rollback that a
-        crash interrupted is finished first."""
+        crash interrupted is finished first; then, unless ``recover`` is None (a sync does it
+        itself, to report it), what a writer killed mid-batch left is cleaned up in a commit
+        whose trigger is ``recover:RECOVER``."""
         store = self.store()
         store.refresh()
         history.complete_pending(store)
+        if recover is not None:
+            recover_interrupted_batch(store, recover)
         return store
 
     # --- writing --------------------------------------------------------------------------------
@@ -476,7 +488,7 @@ class Index:
     def tag(self, name: str, ref: str | None = None) -> Commit:
         """Name a commit (default: the latest). A tagged commit is never removed by retention."""
         with self.writing():
-            store = self._open_existing_for_writing()
+            store = self._open_existing_for_writing("tag")
             log = history.commits(store)
             if not log:
                 raise UnknownVersion("the index has no commits to tag yet")
@@ -486,7 +498,7 @@ class Index:
 
     def untag(self, name: str) -> str:
         with self.writing():
-            return history.delete_tag(self._open_existing_for_writing(), name)
+            return history.delete_tag(self._open_existing_for_writing("untag"), name)
 
     def plan_rollback(self, ref: str) -> RollbackPlan:
         store = self.store()
@@ -508,7 +520,7 @@ class Index:
         interrupt: the next writer completes the rollback.
         """
         with self.writing():
-            store = self._open_existing_for_writing()
+            store = self._open_existing_for_writing("rollback")
             log = history.commits(store)
             target = history.resolve(store, ref, log)
             plan = history.plan_rollback(store, target, log[-1])
@@ -539,7 +551,7 @@ class Index:
         for good). Says what goes and asks first unless ``yes``.
         """
         with self.writing():
-            store = self._open_existing_for_writing()
+            store = self._open_existing_for_writing("remove-source")
             self._refuse_if_paused(store)
             docs = store.documents_of_source(name)
             chunks = store.chunk_counts().get(name, 0)
@@ -578,7 +590,7 @@ class Index:
     def resume(self) -> dict[str, Any] | None:
         """Lift a pause set by ``rollback(pause=True)``; None if syncing was not paused."""
         with self.writing():
-            return history.resume(self._open_existing_for_writing())
+            return history.resume(self._open_existing_for_writing("resume"))
 
     def rebuild(
         self,
@@ -657,7 +669,7 @@ class Index:
         anything to remove).
         """
         with self.writing():
-            store = self._open_existing_for_writing()
+            store = self._open_existing_for_writing("maintain")
             plan = history.plan_retention(store, timedelta(days=keep_days))
             if plan.commits_lost and not yes:
                 message = plan.describe()
@@ -687,7 +699,7 @@ class Index:
         rewrites history: earlier rollback points and tags are lost. Asks first unless ``yes``.
         """
         with self.writing():
-            store = self._open_existing_for_writing()
+            store = self._open_existing_for_writing("erase")
             docs = store.all_documents(["doc_id", "source", "path"])
             matched = sorted(
                 d["doc_id"]

@@ -22,7 +22,7 @@ from typing import Any
 
 from .errors import StoreError
 from .hashing import sha256_hex
-from .store import TABLES, Store, in_filter
+from .store import MAINTAINED_VERSIONS, TABLES, Store, in_filter
 
 log = logging.getLogger(__name__)
 
@@ -33,7 +33,6 @@ SCALAR_INDEXES = {"chunks": ("doc_id", "text_hash", "source"), "vectors": ("text
 # Measured with lancedb 0.40 at 100,000 rows on 2 cores: exact scan 150-190 ms; IVF_SQ builds
 # in 8-11 s and answers in about 6 ms with recall@10 1.00 at nprobes 20, refine_factor 5.
 VECTOR_INDEX_MIN_ROWS = 20_000
-MAINTAINED_VERSION = "maintained_chunks_version"
 
 
 @dataclass
@@ -88,8 +87,8 @@ def compact_and_clean(
             ) from None
         table.checkout_latest()
         ds = table.to_lance()
-        if name == "chunks":
-            store.update_setting(MAINTAINED_VERSION, int(table.version))
+        if name in MAINTAINED_VERSIONS:
+            store.update_setting(MAINTAINED_VERSIONS[name], int(table.version))
         report.tables[name] = {
             "versions_removed": int(stats.old_versions),
             "bytes_removed": int(stats.bytes_removed),
@@ -162,7 +161,7 @@ def ensure_indexes(
         created.append("chunks.vector (IVF_SQ)")
     if created:
         chunks.checkout_latest()
-        store.update_setting(MAINTAINED_VERSION, int(chunks.version))
+        store.update_setting(MAINTAINED_VERSIONS["chunks"], int(chunks.version))
     return created
 
 

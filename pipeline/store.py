@@ -89,6 +89,14 @@ def _batched(values: Sequence[str], size: int = _IN_BATCH) -> Iterable[Sequence[
         yield values[i : i + size]
 
 
+#: Settings keys where maintenance records the versions it left: compaction and index builds
+#: make versions no commit records, and must not look like a writer that died mid-batch.
+MAINTAINED_VERSIONS = {
+    "chunks": "maintained_chunks_version",
+    "tombstones": "maintained_tombstones_version",
+}
+
+
 def commit_order(row: dict[str, Any]) -> tuple[int, int, str]:
     """Sort key of commit rows, oldest first. Table versions only grow and every commit writes
     the documents or the chunks table (a recovery may write only chunks), so the pair orders
@@ -485,12 +493,18 @@ class Store:
                     found.setdefault(h, v)
         return found
 
-    def last_commit_chunks_version(self) -> int | None:
-        """The chunks version the latest commit recorded (two columns read, not the log)."""
-        rows = self._scan("commits", ["documents_version", "chunks_version", "time"])
+    def last_commit_versions(self) -> dict[str, int] | None:
+        """The chunks and tombstones versions the latest commit recorded (a few columns read,
+        not the log); None before the first commit."""
+        columns = ["documents_version", "chunks_version", "tombstones_version", "time"]
+        rows = self._scan("commits", columns)
         if rows.num_rows == 0:
             return None
-        return int(max(rows.to_pylist(), key=commit_order)["chunks_version"])
+        last = max(rows.to_pylist(), key=commit_order)
+        return {
+            "chunks": int(last["chunks_version"]),
+            "tombstones": int(last["tombstones_version"]),
+        }
 
     def commits(self) -> list[dict[str, Any]]:
         rows = self._scan("commits").to_pylist()
@@ -563,6 +577,24 @@ class Store:
         if removed:
             builder = builder.when_not_matched_by_source_delete(in_filter("doc_id", removed))
         builder.execute(table)
+
+    def tombstones_of_lost_commits(self) -> list[dict[str, Any]]:
+        """Tombstones naming a commit that never landed (a writer died after writing them)."""
+        rows = self._scan("tombstones", ["tombstone_id", "doc_id", "commit_id", "reason", "detail"])
+        landed = set(self._scan("commits", ["commit_id"])["commit_id"].to_pylist())
+        return [r for r in rows.to_pylist() if r["commit_id"] not in landed]
+
+    def drop_tombstones(self, tombstone_ids: Sequence[str]) -> None:
+        """Delete tombstones by id; only for those of a commit that never landed."""
+        for part in _batched(list(tombstone_ids)):
+            self._t["tombstones"].delete(in_filter("tombstone_id", part))
+
+    def adopt_tombstones(self, tombstone_ids: Sequence[str], commit_id: str) -> None:
+        """Make ``commit_id`` the commit of these tombstones (whose own commit never landed)."""
+        for part in _batched(list(tombstone_ids)):
+            self._t["tombstones"].update(
+                where=in_filter("tombstone_id", part), values={"commit_id": commit_id}
+            )
 
     def add_commit(self, row: dict[str, Any]) -> None:
         self._t["commits"].add(pa.Table.from_pylist([row], schema=COMMITS_SCHEMA))

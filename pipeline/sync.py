@@ -39,7 +39,7 @@ from .records import (
     segments_from_json,
     segments_to_json,
 )
-from .store import DocumentBriefs, Store, chunks_schema, vectors_schema
+from .store import MAINTAINED_VERSIONS, DocumentBriefs, Store, chunks_schema, vectors_schema
 
 OUTCOMES = ("added", "modified", "removed", "moved", "unchanged", "failed")
 
@@ -150,6 +150,85 @@ def _list_changes(source: Source, unchanged_if: dict[str, str | None]) -> Listin
     return Listing(keys, changed)
 
 
+def interrupted(store: Store) -> bool:
+    """Whether a writer died mid-batch: the chunks or tombstones table is at a version that
+    neither the last commit nor maintenance recorded."""
+    last = store.last_commit_versions()
+    current = store.versions()
+    if last is None:
+        return store.count("chunks") > 0 or store.count("tombstones") > 0
+    settings = store.settings()
+    return any(
+        current[name] not in (last[name], settings.get(key))
+        for name, key in MAINTAINED_VERSIONS.items()
+    )
+
+
+def recover_interrupted_batch(store: Store, trigger: str) -> CommitResult | None:
+    """Finish the record of a batch whose writer died before its commit row. Every writer
+    calls this first (the caller holds the writer lock); None when there is nothing to do.
+
+    A batch writes tombstones, chunks, documents, then its commit row. Killed in between, it
+    can leave (1) chunks of documents the documents table does not know: if the file was
+    removed meanwhile, no later sync would name it again and its chunks would stay searchable;
+    (2) tombstones naming a commit that never landed. Recovery deletes (1). Of (2), a
+    tombstone whose document still has its row logs a removal that did not happen (the next
+    sync logs it again if the file is still gone): it is deleted; one whose document row is
+    gone logs a removal that did happen: the recovery commit adopts it. Then a commit row
+    (trigger ``recover:TRIGGER``) records the versions as they now are. Until that row lands
+    the versions still disagree, so a crash during recovery is recovered from next time. A
+    writer that recorded versions first (a maintenance run, a rollback) would hide the crash:
+    hence every writer, not only the next sync.
+    """
+    if not interrupted(store):
+        return None
+    started = time.monotonic()
+    orphans = sorted(store.chunk_doc_ids() - store.document_ids())
+    counts = Counts()
+    sources: set[str] = set()
+    version = None
+    if orphans:
+        existing = store.chunk_keys(orphans)
+        counts.chunks["deleted"] = sum(len(v) for v in existing.values())
+        sources = {d.split(":", 1)[0] for d in orphans}
+        dimension = int(store.settings()["dimension"])
+        version = store.replace_chunks(chunks_schema(dimension).empty_table(), orphans)
+    commit_id = new_commit_id()
+    changes: dict[str, Any] = {k: [] for k in OUTCOMES if k != "unchanged"}
+    lost = store.tombstones_of_lost_commits()
+    if lost:
+        present = store.document_ids()
+        store.drop_tombstones([t["tombstone_id"] for t in lost if t["doc_id"] in present])
+        done = [t for t in lost if t["doc_id"] not in present]
+        store.adopt_tombstones([t["tombstone_id"] for t in done], commit_id)
+        for t in done:
+            moved_to = json.loads(t["detail"] or "{}").get("moved_to")
+            if moved_to:
+                changes["moved"].append([t["doc_id"], moved_to])
+            else:
+                changes["removed"].append(t["doc_id"])
+                counts.documents["removed"] += 1
+            sources.add(t["doc_id"].split(":", 1)[0])
+    versions = store.versions()
+    store.add_commit(
+        {
+            "commit_id": commit_id,
+            "time": utc_now(),
+            "trigger": f"recover:{trigger}",
+            "sources": json.dumps(sorted(sources)),
+            "source_revision": None,
+            **{f"documents_{k}": v for k, v in counts.documents.items()},
+            **{f"chunks_{k}": v for k, v in counts.chunks.items()},
+            "seconds": time.monotonic() - started,
+            "chunks_version": versions["chunks"],
+            "documents_version": versions["documents"],
+            "tombstones_version": versions["tombstones"],
+            "changes": json.dumps({**changes, "orphaned": orphans}),
+        }
+    )
+    return CommitResult(commit_id, version or versions["chunks"], counts)
+
+
 def new_commit_id() -> str:
     """20 random hex digits, so a short prefix names one commit (a time-first id made commits
     a few milliseconds apart share their first ten digits). Order comes from the log itself."""
@@ -253,7 +332,7 @@ class SyncEngine:
         # A writer killed mid-batch shows as a chunks version no commit recorded. Clean up
         # after it before anything else, in a commit of its own, so the next crash cannot
         # hide the first one.
-        recovered = self._recover_interrupted_batch(trigger)
+        recovered = recover_interrupted_batch(self.store, trigger)
         if recovered is not None:
             report.commits.append(recovered)
             report.counts.add(recovered.counts)
@@ -278,60 +357,6 @@ class SyncEngine:
                 break
         report.version = int(self.store.table("chunks").version)
         return report
-
-    def _recover_interrupted_batch(self, trigger: str) -> CommitResult | None:
-        """Finish the record of a batch whose writer died before its commit row.
-
-        The write order (chunks, then documents, then the commit row) means such a batch can
-        leave chunks of documents the documents table does not know. If the file was removed
-        while the writer was down, no later sync would ever name it again, and its chunks would
-        stay searchable. So: delete every chunk without a document row, then write a commit row
-        (trigger ``recover:...``) recording the versions as they now are. Until that row lands
-        the versions still disagree, so a crash during recovery is recovered from next time.
-        """
-        if not self._chunks_changed_since_last_commit():
-            return None
-        started = time.monotonic()
-        orphans = sorted(self.store.chunk_doc_ids() - self.store.document_ids())
-        counts = Counts()
-        sources: set[str] = set()
-        version = None
-        if orphans:
-            existing = self.store.chunk_keys(orphans)
-            counts.chunks["deleted"] = sum(len(v) for v in existing.values())
-            sources = {d.split(":", 1)[0] for d in orphans}
-            version = self.store.replace_chunks(
-                chunks_schema(self.embedder.dimension).empty_table(), orphans
-            )
-        commit_id = new_commit_id()
-        versions = self.store.versions()
-        changes: dict[str, list[Any]] = {k: [] for k in OUTCOMES if k != "unchanged"}
-        self.store.add_commit(
-            {
-                "commit_id": commit_id,
-                "time": utc_now(),
-                "trigger": f"recover:{trigger}",
-                "sources": json.dumps(sorted(sources)),
-                "source_revision": None,
-                **{f"documents_{k}": v for k, v in counts.documents.items()},
-                **{f"chunks_{k}": v for k, v in counts.chunks.items()},
-                "seconds": time.monotonic() - started,
-                "chunks_version": versions["chunks"],
-                "documents_version": versions["documents"],
-                "tombstones_version": versions["tombstones"],
-                "changes": json.dumps({**changes, "orphaned": orphans}),
-            }
-        )
-        return CommitResult(commit_id, version or versions["chunks"], counts)
-
-    def _chunks_changed_since_last_commit(self) -> bool:
-        last = self.store.last_commit_chunks_version()
-        current = int(self.store.table("chunks").version)
-        if last is None:
-            return self.store.count("chunks") > 0
-        # Maintenance and index builds also make versions; they record the one they left.
-        maintained = self.store.settings().get("maintained_chunks_version")
-        return current not in (last, maintained)
 
     def _sync_source(
         self,

@@ -523,6 +523,50 @@ def test_a_second_crash_after_a_commit_does_not_hide_chunks_left_by_the_first(
     assert triggers.count("recover:sync") == 1
 
 
+def test_a_tombstone_of_a_batch_that_died_is_dropped_when_its_file_came_back(
+    tmp_path, small_corpus, hash_embedder, monkeypatch
+):
+    from pipeline.verify import verify_index
+
+    ix = make_index(tmp_path, hash_embedder)
+    ix.sync([small_corpus])
+    notice = small_corpus / "notices" / "ECN-0007.txt"
+    away = tmp_path / "ECN-0007.txt"
+    notice.rename(away)  # moved off the share for a moment
+    monkeypatch.setattr(Store, "replace_chunks", lambda self, *a, **k: 1 / 0)
+    with pytest.raises(ZeroDivisionError):
+        ix.sync([small_corpus])  # the removal's tombstone is written, then the writer "dies"
+    monkeypatch.undo()
+    assert make_index(tmp_path, hash_embedder).store().count("tombstones") == 1
+    away.rename(notice)  # back, same inode and mtime: the same fingerprint as indexed
+    restarted = make_index(tmp_path, hash_embedder)
+    assert restarted.sync([small_corpus]).as_dict()["documents"]["unchanged"] == 3
+    # The removal never happened, so nothing may say it did.
+    assert restarted.store().count("tombstones") == 0
+    assert restarted.history()[0].trigger == "recover:sync"
+    assert verify_index(restarted, [FolderSource(name="share", root=small_corpus)]).consistent
+
+
+def test_any_writer_recovers_first_so_maintenance_cannot_hide_a_crash(
+    tmp_path, small_corpus, hash_embedder, monkeypatch
+):
+    ix = make_index(tmp_path, hash_embedder)
+    ix.sync([small_corpus])
+    write(small_corpus / "loans.md", "# Loan bikes\n\nLoan bikes are free for a day.\n")
+    monkeypatch.setattr(Store, "upsert_documents", lambda self, *a, **k: 1 / 0)
+    with pytest.raises(ZeroDivisionError):
+        ix.sync([small_corpus])  # chunks of loans.md written, its document row not
+    monkeypatch.undo()
+    (small_corpus / "loans.md").unlink()
+    # The next writer is maintenance, which records the versions it leaves: it must clean up
+    # before, or the next sync would take the orphaned chunks for maintenance's own.
+    restarted = make_index(tmp_path, hash_embedder)
+    restarted.maintain(keep_days=30, yes=True)
+    assert restarted.history()[0].trigger == "recover:maintain"
+    assert "share:loans.md" not in {r["doc_id"] for r in chunk_rows(restarted)}
+    assert restarted.sync([small_corpus]).as_dict()["commit"] is None
+
+
 def test_a_sync_of_many_commits_compacts_the_tables_a_rescan_reads(tmp_path, hash_embedder):
     from pipeline.maintenance import TIDY_MIN_FRAGMENTS
 
