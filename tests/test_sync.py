@@ -491,20 +491,26 @@ def test_chunks_left_by_a_crash_are_removed_when_their_file_is_gone(
     assert make_index(tmp_path, hash_embedder).sync([small_corpus]).as_dict()["commit"] is None
 
 
+def die_after_the_chunks_of_a_new_file(tmp_path, root, embedder, monkeypatch) -> None:
+    """Index ``root``, add loans.md, and "die" in the next sync after its chunks are written
+    but before its document row; the file then goes away while the writer is down."""
+    ix = make_index(tmp_path, embedder)
+    ix.sync([root])
+    write(root / "loans.md", "# Loan bikes\n\nLoan bikes are free for a day.\n")
+    monkeypatch.setattr(Store, "upsert_documents", lambda self, *a, **k: 1 / 0)
+    with pytest.raises(ZeroDivisionError):
+        ix.sync([root])
+    monkeypatch.undo()
+    (root / "loans.md").unlink()
+
+
 def test_a_second_crash_after_a_commit_does_not_hide_chunks_left_by_the_first(
     tmp_path, small_corpus, hash_embedder, monkeypatch
 ):
     # Found by the kill -9 test in test_service.py: the clean-up of a crash's chunks ran with a
     # source's last batch, so a second crash after an earlier batch had committed recorded a
     # clean version and the orphans stayed searchable for good.
-    ix = make_index(tmp_path, hash_embedder)
-    ix.sync([small_corpus])
-    write(small_corpus / "loans.md", "# Loan bikes\n\nLoan bikes are free for a day.\n")
-    monkeypatch.setattr(Store, "upsert_documents", lambda self, *a, **k: 1 / 0)
-    with pytest.raises(ZeroDivisionError):
-        ix.sync([small_corpus])
-    monkeypatch.undo()
-    (small_corpus / "loans.md").unlink()
+    die_after_the_chunks_of_a_new_file(tmp_path, small_corpus, hash_embedder, monkeypatch)
     for p in (small_corpus / "policies" / "returns.md", small_corpus / "notices" / "ECN-0007.txt"):
         p.write_text(p.read_text() + "\nAn added line about tyre levers.\n")
     restarted = make_index(tmp_path, hash_embedder, batch_documents=1)
@@ -550,14 +556,7 @@ def test_a_tombstone_of_a_batch_that_died_is_dropped_when_its_file_came_back(
 def test_any_writer_recovers_first_so_maintenance_cannot_hide_a_crash(
     tmp_path, small_corpus, hash_embedder, monkeypatch
 ):
-    ix = make_index(tmp_path, hash_embedder)
-    ix.sync([small_corpus])
-    write(small_corpus / "loans.md", "# Loan bikes\n\nLoan bikes are free for a day.\n")
-    monkeypatch.setattr(Store, "upsert_documents", lambda self, *a, **k: 1 / 0)
-    with pytest.raises(ZeroDivisionError):
-        ix.sync([small_corpus])  # chunks of loans.md written, its document row not
-    monkeypatch.undo()
-    (small_corpus / "loans.md").unlink()
+    die_after_the_chunks_of_a_new_file(tmp_path, small_corpus, hash_embedder, monkeypatch)
     # The next writer is maintenance, which records the versions it leaves: it must clean up
     # before, or the next sync would take the orphaned chunks for maintenance's own.
     restarted = make_index(tmp_path, hash_embedder)
