@@ -28,6 +28,7 @@ from . import formats
 from .chunking import chunk_segments
 from .errors import ConfirmationRequired, ExtractionError, SourceError
 from .hashing import sha256_hex
+from .maintenance import erased_token
 from .progress import Progress
 from .records import (
     Chunk,
@@ -198,6 +199,8 @@ def recover_interrupted_batch(store: Store, trigger: str) -> CommitResult | None
     lost = store.tombstones_of_lost_commits()
     if lost:
         present = store.document_ids()
+        # An erasure's tombstones name the document by its token, not its id.
+        present |= {erased_token(d) for d in present}
         store.drop_tombstones([t["tombstone_id"] for t in lost if t["doc_id"] in present])
         done = [t for t in lost if t["doc_id"] not in present]
         store.adopt_tombstones([t["tombstone_id"] for t in done], commit_id)
