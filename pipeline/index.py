@@ -233,13 +233,14 @@ class Index:
         return self._open_existing_for_writing(recover=None)
 
     def _open_existing_for_writing(self, recover: str | None) -> Store:
-        """The store, up to date, for a writer (the caller holds the lock). A rollback that a
-        crash interrupted is finished first; then, unless ``recover`` is None (a sync does it
-        itself, to report it), what a writer killed mid-batch left is cleaned up in a commit
-        whose trigger is ``recover:RECOVER``."""
+        """The store, up to date, for a writer (the caller holds the lock). A rollback or an
+        erasure that a crash interrupted is finished first; then, unless ``recover`` is None (a
+        sync does it itself, to report it), what a writer killed mid-batch left is cleaned up
+        in a commit whose trigger is ``recover:RECOVER``."""
         store = self.store()
         store.refresh()
         history.complete_pending(store)
+        maintenance.complete_pending_erase(store)
         if recover is not None:
             recover_interrupted_batch(store, recover)
         return store

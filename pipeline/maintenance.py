@@ -16,6 +16,7 @@ import json
 import logging
 import math
 import warnings
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from datetime import timedelta
 from typing import Any
@@ -50,7 +51,11 @@ def _first_line(exc: BaseException) -> str:
 
 
 def compact_and_clean(
-    store: Store, older_than: timedelta, *, materialize_deletions: bool = False
+    store: Store,
+    older_than: timedelta,
+    *,
+    materialize_deletions: bool = False,
+    tables: Sequence[str] = TABLES,
 ) -> MaintenanceReport:
     """Compact every table, then remove versions older than ``older_than`` (tags are kept).
 
@@ -58,7 +63,7 @@ def compact_and_clean(
     files no version references are removed at once (erasure needs both).
     """
     report = MaintenanceReport()
-    for name in TABLES:
+    for name in tables:
         table = store.table(name)
         table.checkout_latest()
         ds = table.to_lance()
@@ -204,14 +209,17 @@ def erased_token(doc_id: str) -> str:
     return "erased:" + sha256_hex(doc_id)[:16]
 
 
+PENDING_ERASE = "pending_erase"
+
+
 def erase_documents(
     store: Store, doc_ids: list[str], *, commit_id: str, now: str
 ) -> dict[str, Any]:
     """Delete the documents everywhere and rewrite history so no version holds them.
 
-    Order: log the erasure (without content), delete the rows, scrub the logs' mentions of the
-    documents' names, drop the tags (they pin versions that hold the text), then compact with
-    deletions materialised and remove every old version.
+    First an intent goes into the settings (what to erase and what that takes, worked out while
+    the rows still exist); ``finish_erase`` then does every step in a way that can be repeated,
+    so a writer killed midway is finished by the next one (``complete_pending_erase``).
     """
     docs = {d["doc_id"]: d for d in store.all_documents() if d["doc_id"] in set(doc_ids)}
     chunk_rows = (
@@ -226,72 +234,106 @@ def erase_documents(
         .to_table(columns=["text_hash"], filter=f"NOT ({in_filter('doc_id', doc_ids)})")
     )
     shared = erased_hashes & set(kept["text_hash"].to_pylist())
-    vector_hashes = sorted(erased_hashes - shared)
+    intent = {
+        "commit_id": commit_id,
+        "time": now,
+        "doc_ids": list(doc_ids),
+        "sources": {d: docs.get(d, {}).get("source") for d in doc_ids},
+        "chunk_counts": {d: docs.get(d, {}).get("chunk_count") for d in doc_ids},
+        "chunks_deleted": chunk_rows.num_rows,
+        "vector_hashes": sorted(erased_hashes - shared),
+        "tags_dropped": sorted(store.settings().get("tags", {})),
+    }
+    store.update_setting(PENDING_ERASE, intent)
+    return finish_erase(store, intent)
 
+
+def complete_pending_erase(store: Store) -> dict[str, Any] | None:
+    """Finish an erasure that a crash interrupted; its result, or None if none was pending."""
+    intent = store.settings().get(PENDING_ERASE)
+    return finish_erase(store, intent) if intent else None
+
+
+def finish_erase(store: Store, intent: dict[str, Any]) -> dict[str, Any]:
+    """The steps of an erasure, each safe to repeat: log it (without content), delete the
+    rows, scrub the logs' mentions of the names, drop the tags (they pin versions that hold
+    the text), compact with deletions materialised and remove every old version, write the
+    commit row; then forget the intent, and the settings versions that held it."""
+    doc_ids, commit_id, now = intent["doc_ids"], intent["commit_id"], intent["time"]
     store.add_tombstones(
         [
             {
                 "tombstone_id": sha256_hex(f"{doc_id}\x00erased\x00{commit_id}")[:32],
                 "doc_id": erased_token(doc_id),
-                "source": docs.get(doc_id, {}).get("source"),
+                "source": intent["sources"].get(doc_id),
                 "path": None,
                 "content_hash": None,
                 "removed_at": now,
                 "reason": "erased",
                 "detail": None,
-                "chunk_count": docs.get(doc_id, {}).get("chunk_count"),
+                "chunk_count": intent["chunk_counts"].get(doc_id),
                 "chunks_version": int(store.table("chunks").version) + 1,
                 "commit_id": commit_id,
             }
             for doc_id in doc_ids
         ]
     )
-    chunks_deleted = chunk_rows.num_rows
     store.table("chunks").delete(in_filter("doc_id", doc_ids))
     store.table("documents").delete(in_filter("doc_id", doc_ids))
+    vector_hashes = intent["vector_hashes"]
     for i in range(0, len(vector_hashes), 400):
         store.table("vectors").delete(in_filter("text_hash", vector_hashes[i : i + 400]))
     _scrub_logs(store, doc_ids)
 
-    tags_dropped = sorted(store.settings().get("tags", {}))
     for name in TABLES:
         lance_tags = store.table(name).tags
         for tag in list(lance_tags.list()):
             lance_tags.delete(tag)
-    store.update_setting("tags", {})
-    store.update_setting("paused", None)
+    settings = store.settings()
+    if settings.get("tags"):
+        store.update_setting("tags", {})
+    if settings.get("paused"):
+        store.update_setting("paused", None)
 
-    versions = store.versions()
-    store.add_commit(
-        {
-            "commit_id": commit_id,
-            "time": now,
-            "trigger": "erase",
-            "sources": json.dumps(sorted({d["source"] for d in docs.values()})),
-            "source_revision": None,
-            "documents_added": 0,
-            "documents_modified": 0,
-            "documents_removed": len(doc_ids),
-            "documents_moved": 0,
-            "documents_unchanged": 0,
-            "documents_failed": 0,
-            "chunks_embedded": 0,
-            "chunks_reused": 0,
-            "chunks_added": 0,
-            "chunks_deleted": chunks_deleted,
-            "seconds": 0.0,
-            "chunks_version": versions["chunks"],
-            "documents_version": versions["documents"],
-            "tombstones_version": versions["tombstones"],
-            "changes": json.dumps({"erased": [erased_token(d) for d in doc_ids]}),
-        }
-    )
+    # Compaction and cleanup first, then the commit row, so the versions it names still exist
+    # (a REF to the erase commit, a tag on it, search as of it).
     report = compact_and_clean(store, timedelta(0), materialize_deletions=True)
+    if not any(c["commit_id"] == commit_id for c in store.commits()):
+        versions = store.versions()
+        store.add_commit(
+            {
+                "commit_id": commit_id,
+                "time": now,
+                "trigger": "erase",
+                "sources": json.dumps(sorted({s for s in intent["sources"].values() if s})),
+                "source_revision": None,
+                "documents_added": 0,
+                "documents_modified": 0,
+                "documents_removed": len(doc_ids),
+                "documents_moved": 0,
+                "documents_unchanged": 0,
+                "documents_failed": 0,
+                "chunks_embedded": 0,
+                "chunks_reused": 0,
+                "chunks_added": 0,
+                "chunks_deleted": intent["chunks_deleted"],
+                "seconds": 0.0,
+                "chunks_version": versions["chunks"],
+                "documents_version": versions["documents"],
+                "tombstones_version": versions["tombstones"],
+                "changes": json.dumps({"erased": [erased_token(d) for d in doc_ids]}),
+            }
+        )
+    # The intent names the documents: drop it, then the settings versions that held it. A
+    # crash before this line repeats the erasure (harmless); after it, only names remain in
+    # an old settings version, until the next maintenance.
+    store.update_setting(PENDING_ERASE, None)
+    compact_and_clean(store, timedelta(0), materialize_deletions=True, tables=("settings",))
     return {
         "documents": len(doc_ids),
-        "chunks_deleted": chunks_deleted,
+        "chunks_deleted": intent["chunks_deleted"],
         "vectors_deleted": len(vector_hashes),
-        "tags_dropped": tags_dropped,
+        "tags_dropped": intent["tags_dropped"],
         "maintenance": report.as_dict(),
     }
 

@@ -261,6 +261,48 @@ def test_erase_leaves_no_trace_in_any_file_of_the_index(tmp_path, small_corpus, 
     assert ix.sync([small_corpus]).as_dict()["commit"] is None
 
 
+@pytest.mark.parametrize("dies_in", ["add_tombstones", "scrub", "compaction"])
+def test_an_erase_killed_midway_is_finished_by_the_next_writer(
+    tmp_path, small_corpus, hash_embedder, monkeypatch, dies_in
+):
+    from pipeline import maintenance
+
+    ix = make_index(tmp_path, hash_embedder)
+    three_commits(ix, small_corpus)
+    ix.tag("kept-for-audit")
+    (small_corpus / "policies" / "loans.md").unlink()
+
+    def die(*args, **kwargs):
+        raise RuntimeError(f"killed in {dies_in}")
+
+    if dies_in == "add_tombstones":
+        original = Store.add_tombstones
+
+        def after_tombstones(self, rows):
+            original(self, rows)
+            die()
+
+        monkeypatch.setattr(Store, "add_tombstones", after_tombstones)
+    elif dies_in == "scrub":
+        monkeypatch.setattr(maintenance, "_scrub_logs", die)
+    else:
+        monkeypatch.setattr(maintenance, "compact_and_clean", die)
+    with pytest.raises(RuntimeError, match="killed"):
+        ix.erase(["share/policies/loans.md"], yes=True)
+    monkeypatch.undo()
+
+    # Any writer finishes it first: here a tag, in a new process.
+    again = make_index(tmp_path, hash_embedder)
+    again.tag("after-erase")
+    everything = _every_string_in_the_folder(again.path)
+    assert SECRET not in everything and "policies/loans.md" not in everything
+    tombstones = again.store().table("tombstones").to_arrow().to_pylist()
+    assert [t["reason"] for t in tombstones if t["reason"] == "erased"] == ["erased"]
+    assert [c.trigger for c in again.history()].count("erase") == 1
+    assert "pending_erase" not in {k for k, v in again.store().settings().items() if v}
+    assert again.sync([small_corpus]).as_dict()["commit"] is None
+
+
 def test_maintain_keeps_tags_and_removes_only_untagged_old_versions(
     tmp_path, small_corpus, hash_embedder
 ):

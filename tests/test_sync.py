@@ -566,31 +566,6 @@ def test_any_writer_recovers_first_so_maintenance_cannot_hide_a_crash(
     assert restarted.sync([small_corpus]).as_dict()["commit"] is None
 
 
-def test_an_erase_killed_after_its_tombstones_is_not_logged_as_done(
-    tmp_path, small_corpus, hash_embedder, monkeypatch
-):
-    ix = make_index(tmp_path, hash_embedder)
-    ix.sync([small_corpus])
-    original = Store.add_tombstones
-
-    def then_die(self, rows):
-        original(self, rows)
-        raise RuntimeError("killed after the tombstones")
-
-    monkeypatch.setattr(Store, "add_tombstones", then_die)
-    with pytest.raises(RuntimeError, match="killed"):
-        ix.erase(["share/policies/returns.md"], yes=True)
-    monkeypatch.undo()
-    # The document is still there, so the next writer drops the "erased" record; the erase,
-    # run again, leaves exactly one.
-    again = make_index(tmp_path, hash_embedder)
-    again.erase(["share/policies/returns.md"], yes=True)
-    reasons = [t["reason"] for t in again.store().table("tombstones").to_arrow().to_pylist()]
-    assert reasons == ["erased"]
-    triggers = [c.trigger for c in again.history()]
-    assert triggers[:2] == ["erase", "recover:erase"]
-
-
 def test_a_sync_of_many_commits_compacts_the_tables_a_rescan_reads(tmp_path, hash_embedder):
     from pipeline.maintenance import TIDY_MIN_FRAGMENTS
 
