@@ -258,6 +258,9 @@ def test_erase_leaves_no_trace_in_any_file_of_the_index(tmp_path, small_corpus, 
     # The rest of the index is intact and searchable, and history says an erasure happened.
     assert ix.history()[0].trigger == "erase"
     assert ix.search("returns accepted", k=1)[0].path == "policies/returns.md"
+    # The erase commit names versions that still exist (its row is written after the cleanup).
+    erase_commit = ix.tag("after-erase")
+    assert ix.search("returns accepted", k=1, as_of=erase_commit.id)
     assert ix.sync([small_corpus]).as_dict()["commit"] is None
 
 
