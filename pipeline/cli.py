@@ -185,6 +185,12 @@ def cmd_status(args: argparse.Namespace, index: Index) -> int:
             print(f"  error:   {s['error']['reason']} (since {s['error']['since']})")
         for p in s.get("problems", []):
             print(f"  problem: {p['key']}: {p['problem']} (since {p['since']})")
+    if st.get("pending_erase"):
+        pe = st["pending_erase"]
+        print(
+            f"pending:   an erase of {pe['documents']} documents was interrupted at {pe['since']}; "
+            "the next command that writes finishes it"
+        )
     lc = st["last_commit"]
     if lc:
         d = lc["documents"]

@@ -808,6 +808,12 @@ class Index:
             "last_commit": _commit_summary(last) if last else None,
             "paused": settings.get(history.PAUSED),
             "pending_rollback": bool(settings.get(history.PENDING_ROLLBACK)),
+            # Only a count: the intent names the documents, and status must not repeat them.
+            "pending_erase": (
+                {"documents": len(erasing["doc_ids"]), "since": erasing["time"]}
+                if (erasing := settings.get(maintenance.PENDING_ERASE))
+                else None
+            ),
             "tags": sorted(settings.get("tags", {})),
         }
 

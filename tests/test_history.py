@@ -266,7 +266,7 @@ def test_erase_leaves_no_trace_in_any_file_of_the_index(tmp_path, small_corpus, 
 
 @pytest.mark.parametrize("dies_in", ["add_tombstones", "scrub", "compaction"])
 def test_an_erase_killed_midway_is_finished_by_the_next_writer(
-    tmp_path, small_corpus, hash_embedder, monkeypatch, dies_in
+    tmp_path, small_corpus, hash_embedder, monkeypatch, dies_in, capsys
 ):
     from pipeline import maintenance
 
@@ -293,6 +293,12 @@ def test_an_erase_killed_midway_is_finished_by_the_next_writer(
     with pytest.raises(RuntimeError, match="killed"):
         ix.erase(["share/policies/loans.md"], yes=True)
     monkeypatch.undo()
+    # Status says so, with a count and not the names.
+    pending = make_index(tmp_path, hash_embedder).status()["pending_erase"]
+    assert pending["documents"] == 1 and "loans" not in json.dumps(pending)
+    capsys.readouterr()
+    assert main(["--index", str(ix.path), "status"]) == 0
+    assert "pending:   an erase of 1 documents was interrupted" in capsys.readouterr().out
 
     # Any writer finishes it first: here a tag, in a new process.
     again = make_index(tmp_path, hash_embedder)
@@ -303,6 +309,7 @@ def test_an_erase_killed_midway_is_finished_by_the_next_writer(
     assert [t["reason"] for t in tombstones if t["reason"] == "erased"] == ["erased"]
     assert [c.trigger for c in again.history()].count("erase") == 1
     assert "pending_erase" not in {k for k, v in again.store().settings().items() if v}
+    assert again.status()["pending_erase"] is None
     assert again.sync([small_corpus]).as_dict()["commit"] is None
 
 
