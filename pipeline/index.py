@@ -579,8 +579,8 @@ class Index:
                 batch_documents=self.batch_documents,
                 max_removal_fraction=1.0,
                 progress=self.progress,
+                removal_reason="source removed",
             )
-            engine.removal_reason = "source removed"
             report = engine.sync([_NoItems(name)], yes=True, trigger="remove-source")
             for key in ("source_locations", "source_errors", "source_problems"):
                 entries = dict(store.settings().get(key) or {})

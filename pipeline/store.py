@@ -459,9 +459,9 @@ class Store:
             q = q.where(where, prefilter=True)
         return q.select(columns).limit(k).to_arrow().to_pylist()
 
-    def chunk_doc_ids(self) -> set[str]:
-        """The doc ids that have chunks."""
-        return set(self._scan("chunks", ["doc_id"])["doc_id"].to_pylist())
+    def chunk_doc_id_column(self) -> list[str]:
+        """The doc_id of every chunk (one entry per chunk)."""
+        return self._scan("chunks", ["doc_id"])["doc_id"].to_pylist()
 
     def document_ids(self) -> set[str]:
         """The doc ids that have a document row (searchable or failed)."""

@@ -16,7 +16,8 @@ from __future__ import annotations
 import json
 import secrets
 import time
-from collections.abc import Callable, Iterable, Sequence
+from collections import Counter
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from typing import Any, Protocol
@@ -134,7 +135,7 @@ class Listing:
     changed: list[SourceItem]
 
 
-def _list_changes(source: Source, unchanged_if: dict[str, str | None]) -> Listing:
+def _list_changes(source: Source, unchanged_if: Mapping[str, str | None]) -> Listing:
     """List a source and keep only what changed. A connector may do both in one pass
     (``list_changes``, as the folder walk does, so an unchanged file costs one stat and one
     string, not two objects); any other is listed whole and compared here."""
@@ -184,13 +185,14 @@ def recover_interrupted_batch(store: Store, trigger: str) -> CommitResult | None
     if not interrupted(store):
         return None
     started = time.monotonic()
-    orphans = sorted(store.chunk_doc_ids() - store.document_ids())
+    present = store.document_ids()
+    chunks_of = Counter(store.chunk_doc_id_column())
+    orphans = sorted(set(chunks_of) - present)
     counts = Counts()
     sources: set[str] = set()
     version = None
     if orphans:
-        existing = store.chunk_keys(orphans)
-        counts.chunks["deleted"] = sum(len(v) for v in existing.values())
+        counts.chunks["deleted"] = sum(chunks_of[d] for d in orphans)
         sources = {d.split(":", 1)[0] for d in orphans}
         dimension = int(store.settings()["dimension"])
         version = store.replace_chunks(chunks_schema(dimension).empty_table(), orphans)
@@ -198,7 +200,6 @@ def recover_interrupted_batch(store: Store, trigger: str) -> CommitResult | None
     changes: dict[str, Any] = {k: [] for k in OUTCOMES if k != "unchanged"}
     lost = store.tombstones_of_lost_commits()
     if lost:
-        present = store.document_ids()
         # An erasure's tombstones name the document by its token, not its id.
         present |= {erased_token(d) for d in present}
         store.drop_tombstones([t["tombstone_id"] for t in lost if t["doc_id"] in present])
@@ -283,6 +284,7 @@ class SyncEngine:
         batch_documents: int = 200,
         max_removal_fraction: float = 0.5,
         progress: Progress | None = None,
+        removal_reason: str = "gone at source",
         vector_sources: Sequence[Store] = (),
     ) -> None:
         self.store = store
@@ -295,7 +297,7 @@ class SyncEngine:
         self.batch_documents = batch_documents
         self.max_removal_fraction = max_removal_fraction
         self.progress = progress or Progress(enabled=False)
-        self.removal_reason = "gone at source"  # what a tombstone of a removal says
+        self.removal_reason = removal_reason  # what the tombstone of a removal says
 
     # --- the whole sync -------------------------------------------------------------------------
 
@@ -332,9 +334,8 @@ class SyncEngine:
             except SourceError as exc:
                 exc.source = source.name  # which source, for status
                 raise
-        # A writer killed mid-batch shows as a chunks version no commit recorded. Clean up
-        # after it before anything else, in a commit of its own, so the next crash cannot
-        # hide the first one.
+        # A writer killed mid-batch shows as a version no commit recorded. Clean up after it
+        # before any batch, in a commit of its own, so the next crash cannot hide the first.
         recovered = recover_interrupted_batch(self.store, trigger)
         if recovered is not None:
             report.commits.append(recovered)

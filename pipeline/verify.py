@@ -33,7 +33,7 @@ from connectors.folder import FolderSource
 from . import formats
 from .errors import SourceError
 from .index import Index
-from .store import Store, chunks_schema, quote
+from .store import Store, chunks_schema
 from .sync import Source, fingerprint_key
 
 EXIT_CONSISTENT, EXIT_INCONSISTENT = 0, 5
@@ -237,35 +237,6 @@ def _check_drift(store: Store, source: Source, report: VerifyReport) -> None:
             )
     for doc_id in sorted(known):
         report.problems.append(Problem("drift", "gone from the source, still indexed", doc_id))
-
-
-def orphaned_documents(store: Store, source: str) -> list[str]:
-    """Doc ids of ``source`` that have chunks but no document row."""
-    chunks = (
-        store.table("chunks")
-        .to_lance()
-        .to_table(columns=["doc_id"], filter=f"source = {quote(source)}")
-    )
-    with_chunks = set(chunks["doc_id"].to_pylist())
-    return sorted(with_chunks - set(store.documents_of_source(source)))
-
-
-def remove_orphan_chunks(index: Index, sources: Sequence[str]) -> list[str]:
-    """Delete chunks whose document has no row; returns their doc ids. Needs the writer lock.
-
-    A writer killed between a batch's chunks write and its documents write leaves such chunks;
-    if the file is then deleted before the next sync, the engine never hears of the document
-    again, so nothing else would remove them. Safe only when no batch is in flight, which
-    holding the writer lock (and being its only user) guarantees.
-    """
-    with index.writing():
-        store = index.store()
-        store.refresh()
-        orphans = [doc for name in sources for doc in orphaned_documents(store, name)]
-        if orphans:
-            dimension = int(store.settings()["dimension"])
-            store.replace_chunks(chunks_schema(dimension).empty_table(), orphans)
-        return orphans
 
 
 def repair_index(

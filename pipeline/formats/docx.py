@@ -24,8 +24,9 @@ modern text box twice, as DrawingML in ``mc:Choice`` and as VML in ``mc:Fallback
 Part 3, markup compatibility); the fallback copy is skipped when a choice holds the text box.
 
 Footnotes and endnotes (``word/footnotes.xml``, ``word/endnotes.xml``; ECMA-376 Part 1, 17.11;
-from memory) follow the paragraph, table or text box that first references them
-(``w:footnoteReference`` / ``w:endnoteReference``), as PARAGRAPH segments under the same heading
+from memory) follow the paragraph or table that first references them (``w:footnoteReference`` /
+``w:endnoteReference``; for a reference in a text box, the paragraph anchoring it, before the
+box's own text), as PARAGRAPH segments under the same heading
 path, each paragraph starting "Footnote N:" or "Endnote N:", N counting references in document
 order as Word numbers them. Separator notes (``w:type`` set) carry no text and are skipped; a
 note nothing references is not shown by Word and is not read. Headers and footers are not read:
@@ -484,7 +485,6 @@ def extract_docx(data: bytes, limits: Limits) -> Extracted:
                 text = normalise_text(paragraph_text(block._p))
                 if text:
                     segments.append(Segment(text, Anchor(heading=current_path()), PARAGRAPH))
-                add_notes(block._p)
 
     try:
         for block in _iter_blocks(document.element.body, document):
