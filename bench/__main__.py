@@ -84,7 +84,7 @@ def main(argv: list[str] | None = None) -> int:
         bench = Bench(workdir=workdir, sizes=sizes, model=args.model, log=log)
         figures: list[Figure] = []
         started = time.perf_counter()
-        for name in FIGURES:  # issue order, whatever order --only gave
+        for name in FIGURES:  # the suite's order, whatever order --only gave
             if name not in chosen:
                 continue
             log(f"[{time.perf_counter() - started:6.0f} s] {name} ...")

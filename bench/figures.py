@@ -516,7 +516,7 @@ def _clustered_unit_vectors(
 
 
 def _chunk_rows(start: int, vectors: np.ndarray, chunks_per_doc: int) -> pa.Table:
-    from pipeline.store import chunks_schema
+    from pipeline.store.schema import chunks_schema
 
     n, dim = vectors.shape
     schema = chunks_schema(dim)
@@ -547,9 +547,10 @@ def search(bench: Bench) -> Figure:
     over an exact numpy top-k on the same vectors; recall@10 against the exact answer; and a
     doc_id-filtered search without and with a BTREE scalar index."""
     from pipeline.index import SEARCH_COLUMNS
-    from pipeline.maintenance import ensure_indexes
     from pipeline.records import ChunkSettings
-    from pipeline.store import FORMAT_VERSION, Store
+    from pipeline.store.schema import FORMAT_VERSION
+    from pipeline.store.tables import Store
+    from pipeline.store.upkeep import ensure_indexes
 
     n, dim, k, per_doc = bench.sizes.search_rows, 384, 10, 10
     rng = np.random.default_rng(11)

@@ -24,7 +24,7 @@ from pipeline.errors import (
     SourcePermission,
     SourceUnreachable,
 )
-from pipeline.records import Fingerprint, SourceItem
+from pipeline.records import Fingerprint, SourceItem, fingerprint_string
 
 # Editor and office temp files, lock files and partial downloads (common practice: these are the
 # names vim, emacs, LibreOffice, Word and browsers use while a file is being written).
@@ -162,7 +162,7 @@ class FolderSource:
     def list_changes(
         self, unchanged_if: Mapping[str, str | None]
     ) -> tuple[set[str], list[SourceItem]]:
-        """Every accepted key, and the items whose fingerprint key (``sync.fingerprint_key``)
+        """Every accepted key, and the items whose fingerprint key (``Fingerprint.key()``)
         is not ``unchanged_if[key]``, in one walk: an unchanged file makes no item at all."""
         self.check_root()
         keys: set[str] = set()
@@ -228,8 +228,7 @@ class FolderSource:
                     continue  # symlinks, sockets, devices
                 if compare:
                     add_key(rel)
-                    # The string sync.fingerprint_key makes of this file's Fingerprint.
-                    if stored(rel) == f"{st.st_size}:{st.st_mtime_ns}:{st.st_ino}:":
+                    if stored(rel) == fingerprint_string(st.st_size, st.st_mtime_ns, st.st_ino):
                         continue
                 yield SourceItem(source, rel, Fingerprint(st.st_size, st.st_mtime_ns, st.st_ino))
 

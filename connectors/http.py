@@ -50,8 +50,9 @@ from pipeline.errors import (
     SourceUnreachable,
 )
 from pipeline.records import Fingerprint, SourceItem
+from pipeline.units import parse_duration
 
-log = logging.getLogger(__name__)
+log = logging.getLogger("upwell.connectors.http")
 
 DEFAULT_TIMEOUT = 10.0
 DEFAULT_RETRIES = 3
@@ -115,23 +116,6 @@ def url_problem(url: str) -> str | None:
 def without_fragment(url: str) -> str:
     parts = urlsplit(url.strip())
     return urlunsplit((parts.scheme, parts.netloc, parts.path or "/", parts.query, ""))
-
-
-def fingerprint_from_key(text: str) -> Fingerprint | None:
-    """The Fingerprint whose ``pipeline.sync.fingerprint_key`` is ``text`` (size:mtime:inode:tag;
-    the tag may itself hold colons), or None for an empty or foreign string."""
-    parts = text.split(":", 3)
-    if len(parts) != 4:
-        return None
-    try:
-        return Fingerprint(int(parts[0]), int(parts[1]), int(parts[2]), parts[3])
-    except ValueError:
-        return None
-
-
-def _key_of(fp: Fingerprint) -> str:
-    # Same layout as pipeline.sync.fingerprint_key, which compares stored and listed values.
-    return f"{fp.size}:{fp.mtime_ns}:{fp.inode}:{fp.tag}"
 
 
 def conditional_headers(fp: Fingerprint | None) -> dict[str, str]:
@@ -231,7 +215,7 @@ class HttpSource:
         self._known = {}
         self._primed = True
         for key, text in known.items():
-            fp = fingerprint_from_key(text)
+            fp = Fingerprint.parse(text)
             if fp is not None:
                 self._known[key] = fp
 
@@ -389,7 +373,7 @@ class HttpSource:
             fetched = _Fetched(fp, None, too_large=True)
         elif page.must_be_html and content_type and content_type not in _HTML_TYPES:
             fetched = _Fetched(fp, None, f"served as {content_type}, not as an HTML page")
-        elif known is not None and _key_of(known) == _key_of(fp):
+        elif known is not None and known.key() == fp.key():
             fetched = _Fetched(fp, None)  # the engine will not read it; if it does, fetch again
         else:
             spool = self._spool_folder() / hashlib.sha256(page.key.encode()).hexdigest()[:32]
@@ -606,8 +590,6 @@ def from_config(
 ) -> HttpSource:
     """A ``kind = "http"`` source: ``urls`` or ``sitemap``, ``timeout``, ``retries``,
     ``max_bytes``, ``per_host``, ``misses_before_removal``. Cheap: no request is made."""
-    from pipeline.config import parse_duration
-
     known = ("urls", "sitemap", "timeout", "retries", "max_bytes", "per_host",
              "misses_before_removal")  # fmt: skip
     for key in options:

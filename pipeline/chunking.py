@@ -1,4 +1,4 @@
-"""Content-defined chunking of extracted segments (DESIGN section 4).
+"""Content-defined chunking of extracted segments ("Boundaries come from content" in DEVELOPERS.md).
 
 Boundaries are chosen from the text around them, never from offsets, so an edit moves only the
 cuts next to it and the unchanged chunks keep their hashes (and their vectors). The idea is the

@@ -7,17 +7,26 @@ with a distinct exit code instead of a traceback.
 
 from __future__ import annotations
 
+# Exit codes of the ``upwell`` command, in one table. An error carries its own ``exit_code``.
+EXIT_OK = 0
+EXIT_ERROR = 1
+EXIT_USAGE = 2  # a usage error, or a confirmation that needed --yes
+EXIT_PARTIAL = 3  # committed, but some documents failed
+EXIT_LOCKED = 4  # another process is writing the index
+EXIT_INCONSISTENT = 5  # verify found problems
+EXIT_PAUSED = 6  # syncing is paused after rollback --pause
+
 
 class UpwellError(Exception):
     """Base of every error upwell raises on purpose."""
 
-    exit_code = 1
+    exit_code = EXIT_ERROR
 
 
 class UsageError(UpwellError):
     """The command line or a setting is wrong."""
 
-    exit_code = 2
+    exit_code = EXIT_USAGE
 
 
 # --- extraction: a document that cannot be turned into text --------------------------------
@@ -82,7 +91,7 @@ class StoreError(UpwellError):
 class IndexLocked(StoreError):
     """Another writer holds the index lock."""
 
-    exit_code = 4
+    exit_code = EXIT_LOCKED
 
 
 class ModelMismatch(StoreError):
@@ -100,13 +109,13 @@ class IndexMissing(StoreError):
 class SyncPaused(StoreError):
     """Syncing is paused after a rollback; ``upwell resume`` lifts it."""
 
-    exit_code = 6
+    exit_code = EXIT_PAUSED
 
 
 class ConfirmationRequired(UpwellError):
     """A destructive step needs confirmation and none was given (no terminal and no --yes)."""
 
-    exit_code = 2
+    exit_code = EXIT_USAGE
 
 
 # --- embedding -------------------------------------------------------------------------------
@@ -114,3 +123,10 @@ class ConfirmationRequired(UpwellError):
 
 class EmbedderError(UpwellError):
     """The embedding model could not be loaded or failed to run."""
+
+
+def first_line(exc: BaseException) -> str:
+    """The first line of an exception's message (its type's name if it has none), for a log
+    line or a status entry that must stay one line."""
+    text = str(exc).strip()
+    return text.splitlines()[0] if text else type(exc).__name__

@@ -26,11 +26,15 @@ from typing import Any
 
 import numpy as np
 
+from connectors.base import Source
 from connectors.folder import FolderSource
-
-from . import formats, history, maintenance
-from .embedding import make_embedder
-from .errors import (
+from pipeline import defaults, formats, history
+from pipeline.embedding import make_embedder
+from pipeline.embedding.base import Embedder
+from pipeline.engine.recovery import recover_interrupted_batch
+from pipeline.engine.reports import CommitResult, SyncReport
+from pipeline.engine.sync import SyncEngine
+from pipeline.errors import (
     ConfirmationRequired,
     ModelMismatch,
     SourceError,
@@ -38,24 +42,30 @@ from .errors import (
     UnknownVersion,
     UsageError,
 )
-from .history import Commit, Diff, RetentionPlan, RollbackPlan
-from .locking import machine_folder, uri_key, writer_lock
-from .progress import Progress
-from .records import ChunkSettings, Extracted, Fingerprint, Limits, SourceItem, segments_from_json
-from .store import FORMAT_VERSION, Store, is_remote, quote
-from .sync import (
-    CommitResult,
-    Source,
-    SyncEngine,
-    SyncReport,
-    new_commit_id,
-    recover_interrupted_batch,
-    utc_now,
+from pipeline.history import erase as erasure
+from pipeline.history.log import Commit, Diff
+from pipeline.history.retention import RetentionPlan
+from pipeline.history.rollback import RollbackPlan
+from pipeline.locations import is_remote
+from pipeline.locking import machine_folder, uri_key, writer_lock
+from pipeline.progress import Progress
+from pipeline.records import (
+    ChunkSettings,
+    Extracted,
+    Fingerprint,
+    Limits,
+    SourceItem,
+    segments_from_json,
 )
+from pipeline.status import index_status
+from pipeline.store import upkeep
+from pipeline.store.ids import new_commit_id, quote, utc_now
+from pipeline.store.schema import FORMAT_VERSION
+from pipeline.store.tables import Store
 
-DEFAULT_INDEX = ".upwell"
+DEFAULT_INDEX = defaults.INDEX_FOLDER
 _NAMED_PATH = re.compile(r"^([A-Za-z0-9][A-Za-z0-9_.-]*)=(.+)$")
-DEFAULT_MODEL = "default"
+DEFAULT_MODEL = defaults.MODEL
 SEARCH_COLUMNS = [
     "_distance",
     "chunk_id",
@@ -150,10 +160,15 @@ class Index:
         chunking: ChunkSettings | None = None,
         limits: Limits | None = None,
         progress: Progress | None = None,
-        batch_documents: int = 200,
-        max_removal_fraction: float = 0.5,
+        batch_documents: int = defaults.BATCH_DOCUMENTS,
+        max_removal_fraction: float = defaults.MAX_REMOVAL_FRACTION,
         storage_options: Mapping[str, str] | None = None,
+        embedder: Embedder | None = None,
     ) -> None:
+        """``embedder``: an already-built embedder to use instead of loading ``model`` (a
+        process that opens several indexes can share one loaded model). It must be the
+        model the index records: ``model`` names it for a new index, and a writer still
+        checks the model id against an existing one."""
         # A folder is a Path; a URI on object storage (s3://bucket/prefix) stays the string it
         # was given, since Path would fold its "//". ``storage_options`` reach LanceDB for URIs.
         where = os.fspath(path or default_index_path())
@@ -166,7 +181,7 @@ class Index:
         self.batch_documents = batch_documents
         self.max_removal_fraction = max_removal_fraction
         self._store: Store | None = None
-        self._embedder: Any = None
+        self._embedder: Any = embedder
         self._lock_depth = 0
 
     # --- opening --------------------------------------------------------------------------------
@@ -177,8 +192,8 @@ class Index:
         folder, or for an index on object storage a folder on this machine keyed by its URI
         (the one machine that writes the index is the one that syncs its sources)."""
         if isinstance(self.path, str):
-            return machine_folder("connector-state") / uri_key(self.path)
-        return self.path / "connector-state"
+            return machine_folder(defaults.CONNECTOR_STATE_FOLDER) / uri_key(self.path)
+        return self.path / defaults.CONNECTOR_STATE_FOLDER
 
     @property
     def exists(self) -> bool:
@@ -240,7 +255,7 @@ class Index:
         store = self.store()
         store.refresh()
         history.complete_pending(store)
-        maintenance.complete_pending_erase(store)
+        erasure.complete_pending_erase(store)
         if recover is not None:
             recover_interrupted_batch(store, recover)
         return store
@@ -319,8 +334,8 @@ class Index:
             if locations is not None:
                 store.update_setting("source_locations", locations)
             if report.commits:
-                maintenance.ensure_indexes(store)
-                maintenance.tidy_small_tables(store)
+                upkeep.ensure_indexes(store)
+                upkeep.tidy_small_tables(store)
             return report
 
     @staticmethod
@@ -653,13 +668,13 @@ class Index:
 
     # --- upkeep ---------------------------------------------------------------------------------
 
-    def plan_retention(self, keep_days: float = 30.0) -> RetentionPlan:
+    def plan_retention(self, keep_days: float = defaults.KEEP_DAYS) -> RetentionPlan:
         return history.plan_retention(self.store(), timedelta(days=keep_days))
 
     def maintain(
         self,
         *,
-        keep_days: float = 30.0,
+        keep_days: float = defaults.KEEP_DAYS,
         yes: bool = False,
         confirm: Callable[[str], bool] | None = None,
     ) -> dict[str, Any]:
@@ -678,8 +693,8 @@ class Index:
                     raise ConfirmationRequired(
                         message + "\nNothing was changed; re-run with --yes."
                     )
-            created = maintenance.ensure_indexes(store)
-            report = maintenance.compact_and_clean(store, timedelta(days=keep_days))
+            created = upkeep.ensure_indexes(store)
+            report = upkeep.compact_and_clean(store, timedelta(days=keep_days))
             report.indexes_created = created
             return {
                 "retention_days": keep_days,
@@ -729,7 +744,7 @@ class Index:
             )
             if not yes and (confirm is None or not confirm(message + "\nErase?")):
                 raise ConfirmationRequired(message + "\nNothing was changed; re-run with --yes.")
-            result = maintenance.erase_documents(
+            result = erasure.erase_documents(
                 store, matched, commit_id=new_commit_id(), now=utc_now()
             )
             store.refresh()
@@ -737,85 +752,7 @@ class Index:
 
     def status(self) -> dict[str, Any]:
         """Totals, per-source counts, failed documents with reasons, model and last commit."""
-        store = self.store()
-        docs = store.all_documents()
-        chunk_counts = store.chunk_counts()
-        commits = store.commits()
-        settings = store.settings()
-        per_source: dict[str, dict[str, Any]] = {}
-        failures = []
-        warnings = []
-        for d in docs:
-            s = per_source.setdefault(
-                d["source"],
-                {
-                    "name": d["source"],
-                    "documents": 0,
-                    "failed": 0,
-                    "chunks": 0,
-                    "last_update": None,
-                },
-            )
-            if d["content_hash"]:
-                s["documents"] += 1
-            if d["status"] == "failed":
-                s["failed"] += 1
-                failures.append(
-                    {
-                        "source": d["source"],
-                        "path": d["path"],
-                        "reason": d["error"],
-                        "since": d["updated_at"],
-                        "last_good_searchable": bool(d["content_hash"]),
-                    }
-                )
-            for w in json.loads(d["warnings"] or "[]"):
-                warnings.append({"source": d["source"], "path": d["path"], "warning": w})
-            if s["last_update"] is None or (d["updated_at"] or "") > s["last_update"]:
-                s["last_update"] = d["updated_at"]
-        for name, n in chunk_counts.items():
-            per_source.setdefault(
-                name, {"name": name, "documents": 0, "failed": 0, "chunks": 0, "last_update": None}
-            )["chunks"] = n
-        for name, err in (settings.get("source_errors") or {}).items():
-            per_source.setdefault(
-                name, {"name": name, "documents": 0, "failed": 0, "chunks": 0, "last_update": None}
-            )["error"] = err
-        for name, recorded in (settings.get("source_problems") or {}).items():
-            per_source.setdefault(
-                name, {"name": name, "documents": 0, "failed": 0, "chunks": 0, "last_update": None}
-            )["problems"] = [{**item, "since": recorded["since"]} for item in recorded["items"]]
-        last = commits[-1] if commits else None
-        return {
-            "index": str(self.path),
-            "totals": {
-                "documents": sum(s["documents"] for s in per_source.values()),
-                "chunks": sum(chunk_counts.values()),
-                "failed": len(failures),
-                "commits": len(commits),
-            },
-            "sources": sorted(per_source.values(), key=lambda s: s["name"]),
-            "failures": sorted(failures, key=lambda f: (f["source"], f["path"])),
-            "warnings": warnings,
-            "model": {
-                "name": settings.get("model"),
-                "id": settings.get("model_id"),
-                "dimension": settings.get("dimension"),
-                "max_input_tokens": settings.get("max_input_tokens"),
-            },
-            "chunking": settings.get("chunking"),
-            "version": int(store.table("chunks").version),
-            "last_commit": _commit_summary(last) if last else None,
-            "paused": settings.get(history.PAUSED),
-            "pending_rollback": bool(settings.get(history.PENDING_ROLLBACK)),
-            # Only a count: the intent names the documents, and status must not repeat them.
-            "pending_erase": (
-                {"documents": len(erasing["doc_ids"]), "since": erasing["time"]}
-                if (erasing := settings.get(maintenance.PENDING_ERASE))
-                else None
-            ),
-            "tags": sorted(settings.get("tags", {})),
-        }
+        return index_status(self.store(), str(self.path))
 
 
 class _DeferredEmbedder:
@@ -857,11 +794,10 @@ class _DeferredEmbedder:
 
 def _stored_document(row: dict[str, Any]) -> tuple[SourceItem, str, Extracted, str]:
     """A documents-table row as an already-extracted document (for rebuild)."""
-    size, mtime_ns, inode, tag = (row["fingerprint"] or "0:0:0:").split(":", 3)
     item = SourceItem(
         source=row["source"],
         key=row["path"],
-        fingerprint=Fingerprint(size=int(size), mtime_ns=int(mtime_ns), inode=int(inode), tag=tag),
+        fingerprint=Fingerprint.parse(row["fingerprint"]) or Fingerprint(0),
     )
     extracted = Extracted(
         media_type=row["media_type"],
@@ -870,20 +806,6 @@ def _stored_document(row: dict[str, Any]) -> tuple[SourceItem, str, Extracted, s
         warnings=tuple(json.loads(row["warnings"] or "[]")),
     )
     return item, row["content_hash"], extracted, row["segments"]
-
-
-def _commit_summary(row: dict[str, Any]) -> dict[str, Any]:
-    return {
-        "id": row["commit_id"],
-        "time": row["time"],
-        "trigger": row["trigger"],
-        "version": row["chunks_version"],
-        "documents": {
-            k: row[f"documents_{k}"]
-            for k in ("added", "modified", "removed", "moved", "unchanged", "failed")
-        },
-        "chunks": {k: row[f"chunks_{k}"] for k in ("embedded", "reused", "added", "deleted")},
-    }
 
 
 class _NoItems:

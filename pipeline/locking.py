@@ -22,8 +22,8 @@ from pathlib import Path
 
 from filelock import FileLock, Timeout
 
-from .errors import IndexLocked
-from .store import is_remote
+from pipeline.errors import IndexLocked
+from pipeline.locations import is_remote
 
 LOCK_NAME = ".writer.lock"
 PID_NAME = ".writer.pid"

@@ -72,6 +72,28 @@ class Fingerprint(NamedTuple):
     inode: int = 0
     tag: str = ""
 
+    def key(self) -> str:
+        """The string the documents table stores and a listing is compared with."""
+        return fingerprint_string(self.size, self.mtime_ns, self.inode, self.tag)
+
+    @classmethod
+    def parse(cls, text: str | None) -> Fingerprint | None:
+        """The Fingerprint whose ``key()`` is ``text`` (the tag may itself hold colons), or
+        None for an empty or foreign string."""
+        parts = (text or "").split(":", 3)
+        if len(parts) != 4:
+            return None
+        try:
+            return cls(int(parts[0]), int(parts[1]), int(parts[2]), parts[3])
+        except ValueError:
+            return None
+
+
+def fingerprint_string(size: int, mtime_ns: int = 0, inode: int = 0, tag: str = "") -> str:
+    """The one layout of a stored fingerprint, ``size:mtime_ns:inode:tag``. A folder walk calls
+    it straight from stat data, so an unchanged file makes no Fingerprint object."""
+    return f"{size}:{mtime_ns}:{inode}:{tag}"
+
 
 class SourceItem(NamedTuple):
     """An item a connector has listed: which source, its key there, and its fingerprint."""

@@ -28,15 +28,14 @@ from typing import Any
 import numpy as np
 import pyarrow as pa
 
+from connectors.base import Source
 from connectors.folder import FolderSource
+from pipeline import formats
+from pipeline.errors import SourceError
+from pipeline.index import Index
+from pipeline.store.schema import chunks_schema
+from pipeline.store.tables import Store
 
-from . import formats
-from .errors import SourceError
-from .index import Index
-from .store import Store, chunks_schema
-from .sync import Source, fingerprint_key
-
-EXIT_CONSISTENT, EXIT_INCONSISTENT = 0, 5
 STRUCTURAL = ("duplicate_chunk_id", "orphan_chunks", "missing_chunks", "bad_vector")
 
 
@@ -226,7 +225,7 @@ def _check_drift(store: Store, source: Source, report: VerifyReport) -> None:
     known = store.documents_of_source(source.name)
     for item in items:
         row = known.pop(item.doc_id, None)
-        fp = fingerprint_key(item.fingerprint)
+        fp = item.fingerprint.key()
         if row is None:
             report.problems.append(Problem("drift", "in the source, not in the index", item.doc_id))
         elif row["status"] == "ok" and row["fingerprint"] != fp:

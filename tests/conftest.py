@@ -7,7 +7,8 @@ from pathlib import Path
 
 import pytest
 
-from pipeline.embedding import HashEmbedder, default_embedder
+from pipeline.embedding.hashed import HashEmbedder
+from pipeline.embedding.onnx import default_embedder
 
 REPO = Path(__file__).resolve().parents[1]
 SAMPLE_CORPUS = REPO / "sample_corpus"

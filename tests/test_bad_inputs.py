@@ -21,7 +21,7 @@ from pipeline.errors import (
 )
 from pipeline.formats import SUPPORTED_SUFFIXES, extract
 from pipeline.records import Limits
-from tests.formats_support import SERVICE_MANUAL, make_pdf
+from tests.support.formats import SERVICE_MANUAL, make_pdf
 
 
 def _small_docx() -> bytes:

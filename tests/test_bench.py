@@ -45,7 +45,7 @@ def toy_run(tmp_path_factory: pytest.TempPathFactory) -> dict:
     return {"figures": figures, "json": collect(figures), "bench": bench}
 
 
-def test_every_figure_reports_the_keys_the_issue_lists(toy_run: dict) -> None:
+def test_every_figure_reports_the_keys_the_readme_documents(toy_run: dict) -> None:
     result = toy_run["json"]
     for key in ("upwell", "fixed_window", "whole_document"):
         assert isinstance(result["edit_locality"][key], float)

@@ -337,7 +337,7 @@ def test_without_forced_cuts_an_edit_changes_at_most_two_chunks_plus_one_per_min
     )
     cuts_inside = 0 if inserted == 0 else 1 + inserted // UNBOUNDED.min_tokens
     assert fresh <= 2 + cuts_inside
-    if inserted < UNBOUNDED.min_tokens:  # one sentence: the bound DESIGN section 4 states
+    if inserted < UNBOUNDED.min_tokens:  # one sentence: the bound DEVELOPERS.md states
         assert fresh <= 3
     # Structural: every chunk wholly before the edit keeps its hash and its place.
     assert new[:wholly_before] == old[:wholly_before]

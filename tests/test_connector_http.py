@@ -20,12 +20,12 @@ from pathlib import Path
 
 import pytest
 
-from connectors.http import HttpSource, fingerprint_from_key, page_for
+from connectors.http import HttpSource, page_for
 from pipeline.cli import main
 from pipeline.config import parse_config
 from pipeline.errors import SourcePermission, SourceUnreachable, UsageError
 from pipeline.index import Index
-from pipeline.sync import fingerprint_key
+from pipeline.records import Fingerprint
 
 # A fixed Last-Modified time, so fingerprints can be checked exactly.
 LAST_MODIFIED = 1_700_000_000
@@ -205,7 +205,7 @@ def test_pages_are_keyed_by_path_and_fingerprinted_by_etag_and_last_modified(sit
     assert fp.mtime_ns == LAST_MODIFIED * 1_000_000_000
     assert fp.size == len(body)
     assert source.read("manual/brakes.html", 10**6) == body
-    assert fingerprint_from_key(fingerprint_key(fp)) == fp
+    assert Fingerprint.parse(fp.key()) == fp
 
 
 def test_without_etags_the_tag_is_the_sha256_of_the_body_and_if_modified_since_is_used(tmp_path):
@@ -214,7 +214,7 @@ def test_without_etags_the_tag_is_the_sha256_of_the_body_and_if_modified_since_i
         index = Index(tmp_path / "ix", model="hash")
         source = source_for(site, tmp_path / "state")
         index.sync([source])
-        stored = fingerprint_from_key(documents(index)["manual/wheels.html"]["fingerprint"])
+        stored = Fingerprint.parse(documents(index)["manual/wheels.html"]["fingerprint"])
         # Reference: hashlib's SHA-256 of the bytes the server served.
         assert stored.tag == "sha256:" + hashlib.sha256(PAGES["/manual/wheels"]).hexdigest()
         site.reset_log()

@@ -21,7 +21,7 @@ from pipeline.errors import (
     UsageError,
 )
 from pipeline.index import Index
-from tests.s3_server import LocalS3, running_s3_server
+from tests.support.s3_server import LocalS3, running_s3_server
 
 _buckets = itertools.count()
 

@@ -17,15 +17,10 @@ import numpy as np
 import pytest
 from scipy.spatial.distance import cosine as scipy_cosine_distance
 
-from pipeline.embedding import (
-    DEFAULT_SHA,
-    Embedder,
-    HashEmbedder,
-    OnnxEmbedder,
-    default_embedder,
-    make_embedder,
-    packaged_model_path,
-)
+from pipeline.embedding import make_embedder
+from pipeline.embedding.base import Embedder
+from pipeline.embedding.hashed import HashEmbedder
+from pipeline.embedding.onnx import DEFAULT_SHA, OnnxEmbedder, default_embedder, packaged_model_path
 from pipeline.errors import EmbedderError
 from pipeline.tokens import DEFAULT_TOKENIZER
 

@@ -16,12 +16,13 @@ import numpy as np
 import pytest
 from scipy.spatial.distance import cosine as scipy_cosine_distance
 
-from pipeline.embedding import Embedder, make_embedder
-from pipeline.embedding_http import HttpEmbedder, RetryNotice, parse_retry_after
+from pipeline.embedding import make_embedder
+from pipeline.embedding.base import Embedder
+from pipeline.embedding.remote import HttpEmbedder, RetryNotice, parse_retry_after
 from pipeline.errors import EmbedderError, ModelMismatch
 from pipeline.index import Index
 from tests.conftest import sentence
-from tests.embedding_server import EmbeddingServer, Fault
+from tests.support.embedding_server import EmbeddingServer, Fault
 from tests.test_sync import chunk_rows, make_index
 
 FIXTURE = Path(__file__).parent / "fixtures" / "reference_vectors.npz"

@@ -64,7 +64,6 @@ def test_missing_root_and_vanished_file_are_errors(tmp_path):
 
 @pytest.mark.parametrize("exclude", [None, ("**/drafts/**", "**/*.tmp")])
 def test_the_one_pass_change_listing_agrees_with_listing_then_comparing(tmp_path, exclude):
-    from pipeline.sync import fingerprint_key
 
     root = tmp_path / "share"
     for n in range(30):
@@ -74,7 +73,7 @@ def test_the_one_pass_change_listing_agrees_with_listing_then_comparing(tmp_path
     source = FolderSource(name="share", root=root)
     if exclude is not None:
         source = FolderSource(name="share", root=root, exclude=exclude)
-    stored = {i.key: fingerprint_key(i.fingerprint) for i in source.list_items()}
+    stored = {i.key: i.fingerprint.key() for i in source.list_items()}
     # Since the "last sync": two edits (one keeps its size), one new file, one removal, and
     # one document whose stored fingerprint is None (never read successfully).
     (root / "bay-0" / "note-00.md").write_text("# Note 0\n\nSpokes for wheel 0, trued.\n")
@@ -86,9 +85,7 @@ def test_the_one_pass_change_listing_agrees_with_listing_then_comparing(tmp_path
     stored["bay-2/note-02.md"] = None
 
     keys, changed = source.list_changes(stored)
-    expected = [
-        i for i in source.list_items() if stored.get(i.key) != fingerprint_key(i.fingerprint)
-    ]
+    expected = [i for i in source.list_items() if stored.get(i.key) != i.fingerprint.key()]
     assert keys == {i.key for i in source.list_items()}
     assert changed == expected
     assert sorted(i.key for i in changed) == [

@@ -16,7 +16,7 @@ from pipeline.errors import CorruptDocument
 from pipeline.formats import extract
 from pipeline.formats.text import normalise_text
 from pipeline.records import HEADING, LIST_ITEM, PARAGRAPH, TABLE_ROW
-from tests.formats_support import comparable_words, word_similarity
+from tests.support.formats import comparable_words, word_similarity
 
 # WordprocessingML main namespace (ECMA-376 Part 1, 17; from memory).
 W = "{http://schemas.openxmlformats.org/wordprocessingml/2006/main}"

@@ -17,7 +17,7 @@ from pipeline import history
 from pipeline.cli import main
 from pipeline.errors import ConfirmationRequired, SyncPaused, UnknownVersion, UsageError
 from pipeline.index import Index
-from pipeline.store import Store
+from pipeline.store.tables import Store
 from tests.conftest import write
 from tests.test_sync import make_index
 
@@ -268,7 +268,7 @@ def test_erase_leaves_no_trace_in_any_file_of_the_index(tmp_path, small_corpus, 
 def test_an_erase_killed_midway_is_finished_by_the_next_writer(
     tmp_path, small_corpus, hash_embedder, monkeypatch, dies_in, capsys
 ):
-    from pipeline import maintenance
+    from pipeline.history import erase as maintenance
 
     ix = make_index(tmp_path, hash_embedder)
     three_commits(ix, small_corpus)

@@ -12,12 +12,13 @@ import pytest
 from scipy.spatial.distance import cosine
 
 from connectors.s3 import S3Source
-from pipeline import formats, store
+from pipeline import formats
 from pipeline.config import parse_config
 from pipeline.errors import IndexLocked, IndexMissing, StoreError, UsageError
 from pipeline.index import Index
+from pipeline.store import tables as store
 from tests.conftest import write
-from tests.s3_server import LocalS3, running_s3_server
+from tests.support.s3_server import LocalS3, running_s3_server
 
 _buckets = itertools.count()
 

@@ -31,7 +31,7 @@ CORPUS = REPO / "sample_corpus"
 GENERATOR = REPO / "tests" / "fixtures" / "make_sample_corpus.py"
 MANUAL = CORPUS / "manuals" / "workshop-service-manual.pdf"
 
-# The formats the extractor reads (DESIGN.md section 3); anything else in the corpus would be a
+# The formats the extractor reads (the README's list); anything else in the corpus would be a
 # stray non-document file that the demo would index or skip by surprise.
 DOCUMENT_SUFFIXES = {".pdf", ".docx", ".md", ".txt", ".vtt", ".srt"}
 
@@ -63,7 +63,7 @@ def test_corpus_holds_between_12_and_20_documents_and_nothing_else() -> None:
     strays = [p for p in files if p.suffix not in DOCUMENT_SUFFIXES]
     assert strays == []
     assert 12 <= len(files) <= 20
-    # Each format of the scenario is present (the brief's list; DESIGN.md section 10).
+    # Each format of the scenario is present (the scenario the README describes).
     assert {p.suffix for p in files} == DOCUMENT_SUFFIXES
 
 
@@ -81,7 +81,7 @@ def test_generator_reproduces_the_committed_files_byte_for_byte(tmp_path: Path) 
 
 def test_every_manual_page_has_text_per_pdfminer() -> None:
     pages = list(extract_pages(str(MANUAL)))
-    assert 8 <= len(pages) <= 12  # the brief asks for 8-12 pages
+    assert 8 <= len(pages) <= 12  # a manual of 8-12 pages, as the README describes it
     for number, page in enumerate(pages, start=1):
         text = "".join(el.get_text() for el in page if isinstance(el, LTTextContainer))
         assert len(text.split()) >= 40, f"page {number} has almost no text"

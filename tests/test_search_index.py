@@ -6,7 +6,7 @@ import random
 
 import numpy as np
 
-from pipeline import maintenance
+from pipeline.store import upkeep as maintenance
 from tests.conftest import paragraph, write
 from tests.test_sync import chunk_rows, make_index
 

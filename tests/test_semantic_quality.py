@@ -16,7 +16,8 @@ import numpy as np
 import pytest
 from scipy.stats import pearsonr
 
-from pipeline.embedding import HashEmbedder, default_embedder
+from pipeline.embedding.hashed import HashEmbedder
+from pipeline.embedding.onnx import default_embedder
 
 # Measured with this model: r = 0.657 (2 cores, about 3 s for the 50 documents). The bar sits
 # below it with room for onnxruntime version noise, and far above what shared words alone reach.

@@ -1,6 +1,6 @@
 """The sync engine end to end: real LanceDB, real files, the real model where vectors matter.
 
-Each test states one invariant of DESIGN.md section 2 and builds its own corpus in tmp_path.
+Each test states one invariant of DEVELOPERS.md ("Invariants") and builds its own corpus in tmp_path.
 """
 
 from __future__ import annotations
@@ -16,7 +16,7 @@ import pytest
 
 from connectors.folder import FolderSource
 from pipeline import formats
-from pipeline.embedding import HashEmbedder
+from pipeline.embedding.hashed import HashEmbedder
 from pipeline.errors import (
     ConfirmationRequired,
     IndexLocked,
@@ -26,16 +26,14 @@ from pipeline.errors import (
 )
 from pipeline.index import Index
 from pipeline.locking import writer_lock
-from pipeline.store import Store
+from pipeline.store.tables import Store
 from tests.conftest import long_markdown, paragraph, write
 
 
 def make_index(tmp_path: Path, embedder, **kw) -> Index:
     """An index in tmp_path that reuses the session's loaded embedder."""
     model = "hash" if isinstance(embedder, HashEmbedder) else None
-    ix = Index(tmp_path / "index", model=model, **kw)
-    ix._embedder = embedder
-    return ix
+    return Index(tmp_path / "index", model=model, embedder=embedder, **kw)
 
 
 def chunk_rows(ix: Index) -> list[dict]:
@@ -357,8 +355,7 @@ def test_crash_at_any_write_then_rerun_equals_a_clean_run(
 
     clean_root = tmp_path / "clean" / "share"
     shutil.copytree(small_corpus, clean_root)
-    clean = Index(tmp_path / "clean-index", model="hash")
-    clean._embedder = hash_embedder
+    clean = Index(tmp_path / "clean-index", model="hash", embedder=hash_embedder)
     clean.sync([clean_root])
     edit(clean_root)
     clean.sync([clean_root])
@@ -567,7 +564,7 @@ def test_any_writer_recovers_first_so_maintenance_cannot_hide_a_crash(
 
 
 def test_a_sync_of_many_commits_compacts_the_tables_a_rescan_reads(tmp_path, hash_embedder):
-    from pipeline.maintenance import TIDY_MIN_FRAGMENTS
+    from pipeline.store.upkeep import TIDY_MIN_FRAGMENTS
 
     root = tmp_path / "many"
     n = TIDY_MIN_FRAGMENTS + 4

@@ -22,7 +22,7 @@ import pytest
 
 from pipeline.cli import main
 from pipeline.index import Index
-from pipeline.store import quote
+from pipeline.store.ids import quote
 from pipeline.verify import verify_index
 from tests.conftest import write
 

@@ -14,16 +14,30 @@ import logging
 import os
 import threading
 from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
-from typing import TYPE_CHECKING, Any
+from typing import Any, Protocol
 from urllib.parse import parse_qs, urlsplit
 
-from .config import ServerConfig
-from .errors import IndexMissing, UpwellError, UsageError
-from .index import Hit, Index
-from .metrics import CONTENT_TYPE
+from pipeline.config import ServerConfig
+from pipeline.errors import IndexMissing, UpwellError, UsageError
+from pipeline.index import Hit, Index
+from pipeline.service.metrics import CONTENT_TYPE, ServiceMetrics
 
-if TYPE_CHECKING:
-    from .service import Service
+
+class Service(Protocol):
+    """What the API reads of the running service. The daemon provides it; the API never imports
+    the daemon, so the dependency points one way (daemon -> api)."""
+
+    index: Index
+    metrics: ServiceMetrics
+    busy: threading.Event
+    started_at: float
+
+    def healthy(self) -> bool: ...
+
+    def paused(self) -> bool: ...
+
+    def queue_depth(self) -> int: ...
+
 
 log = logging.getLogger("upwell.http")
 MAX_K = 100

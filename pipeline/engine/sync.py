@@ -14,116 +14,35 @@ written and its tombstones already logged, and writes only what is missing.
 from __future__ import annotations
 
 import json
-import secrets
 import time
-from collections import Counter
-from collections.abc import Callable, Iterable, Mapping, Sequence
-from dataclasses import dataclass, field
-from datetime import UTC, datetime
-from typing import Any, Protocol
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pyarrow as pa
 
-from . import formats
-from .chunking import chunk_segments
-from .errors import ConfirmationRequired, ExtractionError, SourceError
-from .hashing import sha256_hex
-from .maintenance import erased_token
-from .progress import Progress
-from .records import (
+from connectors.base import Source
+from pipeline import defaults, formats
+from pipeline.chunking import chunk_segments
+from pipeline.embedding.base import Embedder
+from pipeline.engine.recovery import recover_interrupted_batch
+from pipeline.engine.reports import OUTCOMES, CommitResult, Counts, Failure, SyncReport
+from pipeline.errors import ConfirmationRequired, ExtractionError, SourceError
+from pipeline.hashing import sha256_hex
+from pipeline.progress import Progress
+from pipeline.records import (
     Chunk,
     ChunkSettings,
     Extracted,
-    Fingerprint,
     Limits,
     SourceItem,
     segments_from_json,
     segments_to_json,
 )
-from .store import MAINTAINED_VERSIONS, DocumentBriefs, Store, chunks_schema, vectors_schema
-
-OUTCOMES = ("added", "modified", "removed", "moved", "unchanged", "failed")
-
-
-class Source(Protocol):
-    """What the engine needs of a connector."""
-
-    @property
-    def name(self) -> str: ...
-
-    def list_items(self) -> Iterable[SourceItem]: ...
-
-    def read(self, key: str, max_bytes: int) -> bytes: ...
-
-
-class Embedder(Protocol):
-    model_id: str
-    dimension: int
-    max_input_tokens: int
-    tokens: Any
-
-    def embed(self, texts: Sequence[str]) -> np.ndarray: ...
-
-
-@dataclass(frozen=True)
-class Failure:
-    source: str
-    path: str
-    reason: str
-
-    def as_dict(self) -> dict[str, str]:
-        return {"source": self.source, "path": self.path, "reason": self.reason}
-
-
-@dataclass
-class Counts:
-    """Per-outcome document counts and chunk counts of a batch or a whole sync."""
-
-    documents: dict[str, int] = field(default_factory=lambda: dict.fromkeys(OUTCOMES, 0))
-    chunks: dict[str, int] = field(
-        default_factory=lambda: {"embedded": 0, "reused": 0, "added": 0, "deleted": 0}
-    )
-
-    def add(self, other: Counts) -> None:
-        for k, v in other.documents.items():
-            self.documents[k] += v
-        for k, v in other.chunks.items():
-            self.chunks[k] += v
-
-
-@dataclass(frozen=True)
-class CommitResult:
-    commit_id: str
-    version: int
-    counts: Counts
-
-
-@dataclass
-class SyncReport:
-    """What one sync did, over all its sources and batches."""
-
-    commits: list[CommitResult] = field(default_factory=list)
-    counts: Counts = field(default_factory=Counts)
-    failures: list[Failure] = field(default_factory=list)
-    version: int = 0
-    interrupted: bool = False
-
-    def as_dict(self) -> dict[str, Any]:
-        last = self.commits[-1] if self.commits else None
-        return {
-            "commit": last.commit_id if last else None,
-            "version": self.version,
-            "commits": [c.commit_id for c in self.commits],
-            "documents": dict(self.counts.documents),
-            "chunks": dict(self.counts.chunks),
-            "failures": [f.as_dict() for f in self.failures],
-            "interrupted": self.interrupted,
-        }
-
-
-def fingerprint_key(fp: Fingerprint) -> str:
-    return f"{fp.size}:{fp.mtime_ns}:{fp.inode}:{fp.tag}"
+from pipeline.store.ids import chunk_ids, new_commit_id, tombstone_id, utc_now
+from pipeline.store.schema import DocumentBriefs, chunks_schema, commit_row, vectors_schema
+from pipeline.store.tables import Store
 
 
 @dataclass
@@ -147,117 +66,9 @@ def _list_changes(source: Source, unchanged_if: Mapping[str, str | None]) -> Lis
     changed = []
     for item in source.list_items():
         keys.add(item.key)
-        if unchanged_if.get(item.key) != fingerprint_key(item.fingerprint):
+        if unchanged_if.get(item.key) != item.fingerprint.key():
             changed.append(item)
     return Listing(keys, changed)
-
-
-def interrupted(store: Store) -> bool:
-    """Whether a writer died mid-batch: the chunks or tombstones table is at a version that
-    neither the last commit nor maintenance recorded."""
-    last = store.last_commit_versions()
-    current = store.versions()
-    if last is None:
-        return store.count("chunks") > 0 or store.count("tombstones") > 0
-    settings = store.settings()
-    return any(
-        current[name] not in (last[name], settings.get(key))
-        for name, key in MAINTAINED_VERSIONS.items()
-    )
-
-
-def recover_interrupted_batch(store: Store, trigger: str) -> CommitResult | None:
-    """Finish the record of a batch whose writer died before its commit row. Every writer
-    calls this first (the caller holds the writer lock); None when there is nothing to do.
-
-    A batch writes tombstones, chunks, documents, then its commit row. Killed in between, it
-    can leave (1) chunks of documents the documents table does not know: if the file was
-    removed meanwhile, no later sync would name it again and its chunks would stay searchable;
-    (2) tombstones naming a commit that never landed. Recovery deletes (1). Of (2), a
-    tombstone whose document still has its row logs a removal that did not happen (the next
-    sync logs it again if the file is still gone): it is deleted; one whose document row is
-    gone logs a removal that did happen: the recovery commit adopts it. Then a commit row
-    (trigger ``recover:TRIGGER``) records the versions as they now are. Until that row lands
-    the versions still disagree, so a crash during recovery is recovered from next time. A
-    writer that recorded versions first (a maintenance run, a rollback) would hide the crash:
-    hence every writer, not only the next sync.
-    """
-    if not interrupted(store):
-        return None
-    started = time.monotonic()
-    present = store.document_ids()
-    chunks_of = Counter(store.chunk_doc_id_column())
-    orphans = sorted(set(chunks_of) - present)
-    counts = Counts()
-    sources: set[str] = set()
-    version = None
-    if orphans:
-        counts.chunks["deleted"] = sum(chunks_of[d] for d in orphans)
-        sources = {d.split(":", 1)[0] for d in orphans}
-        dimension = int(store.settings()["dimension"])
-        version = store.replace_chunks(chunks_schema(dimension).empty_table(), orphans)
-    commit_id = new_commit_id()
-    changes: dict[str, Any] = {k: [] for k in OUTCOMES if k != "unchanged"}
-    lost = store.tombstones_of_lost_commits()
-    if lost:
-        # An erasure's tombstones name the document by its token, not its id.
-        present |= {erased_token(d) for d in present}
-        store.drop_tombstones([t["tombstone_id"] for t in lost if t["doc_id"] in present])
-        done = [t for t in lost if t["doc_id"] not in present]
-        store.adopt_tombstones([t["tombstone_id"] for t in done], commit_id)
-        for t in done:
-            moved_to = json.loads(t["detail"] or "{}").get("moved_to")
-            if moved_to:
-                changes["moved"].append([t["doc_id"], moved_to])
-            else:
-                changes["removed"].append(t["doc_id"])
-                counts.documents["removed"] += 1
-            sources.add(t["doc_id"].split(":", 1)[0])
-    versions = store.versions()
-    store.add_commit(
-        {
-            "commit_id": commit_id,
-            "time": utc_now(),
-            "trigger": f"recover:{trigger}",
-            "sources": json.dumps(sorted(sources)),
-            "source_revision": None,
-            **{f"documents_{k}": v for k, v in counts.documents.items()},
-            **{f"chunks_{k}": v for k, v in counts.chunks.items()},
-            "seconds": time.monotonic() - started,
-            "chunks_version": versions["chunks"],
-            "documents_version": versions["documents"],
-            "tombstones_version": versions["tombstones"],
-            "changes": json.dumps({**changes, "orphaned": orphans}),
-        }
-    )
-    return CommitResult(commit_id, version or versions["chunks"], counts)
-
-
-def new_commit_id() -> str:
-    """20 random hex digits, so a short prefix names one commit (a time-first id made commits
-    a few milliseconds apart share their first ten digits). Order comes from the log itself."""
-    return secrets.token_hex(10)
-
-
-def utc_now() -> str:
-    return datetime.now(UTC).isoformat(timespec="milliseconds").replace("+00:00", "Z")
-
-
-def chunk_ids(chunks: Sequence[Chunk]) -> list[str]:
-    """Row keys: the document, the text hash, and which repeat of that text in the document."""
-    seen: dict[str, int] = {}
-    ids = []
-    for c in chunks:
-        n = seen.get(c.text_hash, 0)
-        seen[c.text_hash] = n + 1
-        ids.append(sha256_hex(f"{c.doc_id}\x00{c.text_hash}\x00{n}")[:32])
-    return ids
-
-
-def tombstone_id(doc_id: str, content_hash: str, last_commit: str) -> str:
-    # Stable across re-runs of the same removal: the document row it removes does not change
-    # until the batch completes.
-    return sha256_hex(f"{doc_id}\x00{content_hash}\x00{last_commit}")[:32]
 
 
 @dataclass
@@ -281,8 +92,8 @@ class SyncEngine:
         chunking: ChunkSettings,
         limits: Limits,
         *,
-        batch_documents: int = 200,
-        max_removal_fraction: float = 0.5,
+        batch_documents: int = defaults.BATCH_DOCUMENTS,
+        max_removal_fraction: float = defaults.MAX_REMOVAL_FRACTION,
         progress: Progress | None = None,
         removal_reason: str = "gone at source",
         vector_sources: Sequence[Store] = (),
@@ -453,7 +264,7 @@ class SyncEngine:
 
         for item in self.progress.iterate(items, f"reading {source.name}"):
             row = known.get(item.doc_id)
-            fp = fingerprint_key(item.fingerprint)
+            fp = item.fingerprint.key()
             try:
                 data = source.read(item.key, self.limits.max_file_bytes)
             except ExtractionError as exc:
@@ -629,7 +440,7 @@ class SyncEngine:
                     "source": w.item.source,
                     "path": w.item.key,
                     "size": w.item.fingerprint.size,
-                    "fingerprint": fingerprint_key(w.item.fingerprint),
+                    "fingerprint": w.item.fingerprint.key(),
                     "content_hash": w.content_hash,
                     "media_type": w.extracted.media_type,
                     "title": w.extracted.title,
@@ -655,20 +466,18 @@ class SyncEngine:
         versions = self.store.versions()
         seconds = time.monotonic() - started
         self.store.add_commit(
-            {
-                "commit_id": commit_id,
-                "time": now,
-                "trigger": trigger,
-                "sources": json.dumps([source_name]),
-                "source_revision": self._revisions.get(source_name),
-                **{f"documents_{k}": v for k, v in counts.documents.items()},
-                **{f"chunks_{k}": v for k, v in counts.chunks.items()},
-                "seconds": seconds,
-                "chunks_version": versions["chunks"],
-                "documents_version": versions["documents"],
-                "tombstones_version": versions["tombstones"],
-                "changes": json.dumps(changes),
-            }
+            commit_row(
+                commit_id=commit_id,
+                time=now,
+                trigger=trigger,
+                versions=versions,
+                sources=[source_name],
+                documents=counts.documents,
+                chunks=counts.chunks,
+                seconds=seconds,
+                changes=changes,
+                source_revision=self._revisions.get(source_name),
+            )
         )
         return CommitResult(commit_id, version or versions["chunks"], counts)
 

@@ -25,7 +25,6 @@ Guarantees, on top of the :class:`pipeline.embedding.Embedder` protocol:
 from __future__ import annotations
 
 import email.utils
-import hashlib
 import http.client
 import json
 import logging
@@ -46,10 +45,11 @@ from typing import Any
 
 import numpy as np
 
+from pipeline.embedding.base import file_sha256
 from pipeline.errors import EmbedderError
 from pipeline.tokens import TokenCounter
 
-log = logging.getLogger(__name__)
+log = logging.getLogger("upwell.embedding")
 
 #: OpenAI's embeddings endpoint takes up to 2,048 inputs per request (from memory); 64 keeps
 #: each request small enough that one retry repeats little work.
@@ -299,7 +299,7 @@ class HttpEmbedder:
             "key_env": self.api_key_env,
             "weights_sha256": None,
             # Chunk budgets are counted with this tokenizer: an estimate of the remote model's.
-            "tokenizer_sha256": _file_sha256(self.tokens.path),
+            "tokenizer_sha256": file_sha256(self.tokens.path),
             "dimension": self.dimension,
             "max_input_tokens": self.max_input_tokens,
         }
@@ -516,14 +516,6 @@ class HttpEmbedder:
                 f"{self._dimension} was set by {self._dimension_from}; the model behind "
                 f"{self.model_id} changed: rebuild the index with the new model"
             )
-
-
-def _file_sha256(path: str) -> str:
-    try:
-        with open(path, "rb") as handle:
-            return hashlib.file_digest(handle, "sha256").hexdigest()
-    except OSError as exc:
-        raise EmbedderError(f"cannot read {path}: {exc.strerror or exc}") from exc
 
 
 def from_spec(body: str) -> HttpEmbedder:

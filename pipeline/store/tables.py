@@ -19,8 +19,7 @@ from __future__ import annotations
 import json
 import os
 import re
-from collections.abc import Iterable, Mapping, Sequence
-from dataclasses import dataclass
+from collections.abc import Mapping, Sequence
 from datetime import timedelta
 from pathlib import Path
 from typing import Any
@@ -30,20 +29,26 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from .errors import IndexMissing, ModelMismatch, StoreError
+from pipeline.errors import IndexMissing, ModelMismatch, StoreError
+from pipeline.locations import is_remote
+from pipeline.store.ids import IN_BATCH, batched, in_filter, quote
+from pipeline.store.schema import (
+    COMMITS_SCHEMA,
+    DOCUMENT_SUMMARY_COLUMNS,
+    DOCUMENTS_SCHEMA,
+    SETTINGS_SCHEMA,
+    TABLES,
+    TOMBSTONES_SCHEMA,
+    DocumentBriefs,
+    chunks_schema,
+    commit_order,
+    vectors_schema,
+)
 
-FORMAT_VERSION = 1
-_IN_BATCH = 400  # ids per "IN (...)" filter; keeps filter strings short
-_URI = re.compile(r"^[A-Za-z][A-Za-z0-9+.-]*://")
 # How stale a long-lived reader of an index on object storage may be: each read re-checks the
 # latest version once this has passed. A local index is only re-read on ``refresh()``.
 REMOTE_READ_CONSISTENCY = timedelta(seconds=5)
 _S3_ERROR_CODE = re.compile(r"<Code>([A-Za-z]+)</Code>")
-
-
-def is_remote(path: str | os.PathLike[str]) -> bool:
-    """Whether an index path is a URI on object storage (``s3://bucket/prefix``), not a folder."""
-    return bool(_URI.match(os.fspath(path)))
 
 
 def _connect(path: str | os.PathLike[str], storage_options: Mapping[str, str] | None) -> Any:
@@ -73,154 +78,6 @@ def _remote_problem(path: str | os.PathLike[str], exc: Exception) -> StoreError:
     return StoreError(
         f"the index at {path}: {reason}; check index.storage_options or the AWS_* environment"
     )
-
-
-def quote(value: str) -> str:
-    """A SQL string literal for a LanceDB filter. Only ids and hashes ever go in filters."""
-    return "'" + value.replace("'", "''") + "'"
-
-
-def in_filter(column: str, values: Iterable[str]) -> str:
-    return f"{column} IN ({', '.join(quote(v) for v in values)})"
-
-
-def _batched(values: Sequence[str], size: int = _IN_BATCH) -> Iterable[Sequence[str]]:
-    for i in range(0, len(values), size):
-        yield values[i : i + size]
-
-
-#: Settings keys where maintenance records the versions it left: compaction and index builds
-#: make versions no commit records, and must not look like a writer that died mid-batch.
-MAINTAINED_VERSIONS = {
-    "chunks": "maintained_chunks_version",
-    "tombstones": "maintained_tombstones_version",
-}
-
-
-def commit_order(row: dict[str, Any]) -> tuple[int, int, str]:
-    """Sort key of commit rows, oldest first. Table versions only grow and every commit writes
-    the documents or the chunks table (a recovery may write only chunks), so the pair orders
-    commits even within one millisecond; the time breaks what ties remain."""
-    return (int(row["documents_version"]), int(row["chunks_version"]), row["time"])
-
-
-def chunks_schema(dimension: int) -> pa.Schema:
-    return pa.schema(
-        [
-            pa.field("chunk_id", pa.string(), nullable=False),
-            pa.field("doc_id", pa.string(), nullable=False),
-            pa.field("source", pa.string()),
-            pa.field("path", pa.string()),
-            pa.field("ordinal", pa.int32()),
-            pa.field("text", pa.string()),
-            pa.field("context", pa.string()),
-            pa.field("text_hash", pa.string()),
-            pa.field("tokens", pa.int32()),
-            pa.field("page_start", pa.int32()),
-            pa.field("page_end", pa.int32()),
-            pa.field("heading", pa.string()),
-            pa.field("t_start", pa.float64()),
-            pa.field("t_end", pa.float64()),
-            pa.field("line_start", pa.int32()),
-            pa.field("line_end", pa.int32()),
-            pa.field("media_type", pa.string()),
-            pa.field("vector", pa.list_(pa.float32(), dimension)),
-        ]
-    )
-
-
-DOCUMENTS_SCHEMA = pa.schema(
-    [
-        pa.field("doc_id", pa.string(), nullable=False),
-        pa.field("source", pa.string()),
-        pa.field("path", pa.string()),
-        pa.field("size", pa.int64()),
-        pa.field("fingerprint", pa.string()),
-        pa.field("content_hash", pa.string()),
-        pa.field("media_type", pa.string()),
-        pa.field("title", pa.string()),
-        pa.field("status", pa.string()),  # ok | failed
-        pa.field("error", pa.string()),
-        pa.field("failed_fingerprint", pa.string()),
-        pa.field("warnings", pa.string()),  # JSON list
-        pa.field("segments", pa.string()),  # JSON: the extracted text, so no source is re-read
-        pa.field("extractor_version", pa.string()),
-        pa.field("chunk_count", pa.int32()),
-        pa.field("last_commit", pa.string()),
-        pa.field("updated_at", pa.string()),
-    ]
-)
-
-# Everything but the (large) segments column: what planning a sync needs.
-DOCUMENT_SUMMARY_COLUMNS = [f.name for f in DOCUMENTS_SCHEMA if f.name != "segments"]
-
-
-@dataclass(frozen=True)
-class DocumentBriefs:
-    """Per item key of one source: the fingerprint at which it counts as unchanged (the
-    last good one if the document is ok, the one that failed if it failed) and its content
-    hash (None if it was never searchable)."""
-
-    unchanged_if: dict[str, str | None]
-    content_hash: dict[str, str | None]
-
-
-TOMBSTONES_SCHEMA = pa.schema(
-    [
-        pa.field("tombstone_id", pa.string(), nullable=False),
-        pa.field("doc_id", pa.string()),
-        pa.field("source", pa.string()),
-        pa.field("path", pa.string()),
-        pa.field("content_hash", pa.string()),
-        pa.field("removed_at", pa.string()),
-        pa.field("reason", pa.string()),
-        pa.field("detail", pa.string()),
-        pa.field("chunk_count", pa.int32()),
-        pa.field("chunks_version", pa.int64()),
-        pa.field("commit_id", pa.string()),
-    ]
-)
-
-COMMITS_SCHEMA = pa.schema(
-    [
-        pa.field("commit_id", pa.string(), nullable=False),
-        pa.field("time", pa.string()),  # UTC, ISO 8601
-        pa.field("trigger", pa.string()),
-        pa.field("sources", pa.string()),  # JSON list
-        pa.field("source_revision", pa.string()),  # e.g. the git commit a source was read at
-        pa.field("documents_added", pa.int32()),
-        pa.field("documents_modified", pa.int32()),
-        pa.field("documents_removed", pa.int32()),
-        pa.field("documents_moved", pa.int32()),
-        pa.field("documents_unchanged", pa.int32()),
-        pa.field("documents_failed", pa.int32()),
-        pa.field("chunks_embedded", pa.int32()),
-        pa.field("chunks_reused", pa.int32()),
-        pa.field("chunks_added", pa.int32()),
-        pa.field("chunks_deleted", pa.int32()),
-        pa.field("seconds", pa.float64()),
-        pa.field("chunks_version", pa.int64()),
-        pa.field("documents_version", pa.int64()),
-        pa.field("tombstones_version", pa.int64()),
-        pa.field("changes", pa.string()),  # JSON: doc ids by outcome
-    ]
-)
-
-
-def vectors_schema(dimension: int) -> pa.Schema:
-    return pa.schema(
-        [
-            pa.field("text_hash", pa.string(), nullable=False),
-            pa.field("vector", pa.list_(pa.float32(), dimension)),
-        ]
-    )
-
-
-SETTINGS_SCHEMA = pa.schema(
-    [pa.field("key", pa.string(), nullable=False), pa.field("value", pa.string())]
-)
-
-TABLES = ("chunks", "documents", "tombstones", "commits", "vectors", "settings")
 
 
 class Store:
@@ -391,7 +248,7 @@ class Store:
         """Summary rows of some of one source's documents, by doc_id."""
         if not doc_ids:
             return {}
-        if len(doc_ids) > _IN_BATCH:
+        if len(doc_ids) > IN_BATCH:
             wanted = set(doc_ids)
             rows = self.documents_of_source(source)
             return {d: r for d, r in rows.items() if d in wanted}
@@ -416,7 +273,7 @@ class Store:
     def segments_of(self, doc_ids: Sequence[str]) -> dict[str, str]:
         """Stored segments JSON of several documents, by doc_id."""
         out: dict[str, str] = {}
-        for part in _batched(list(doc_ids)):
+        for part in batched(list(doc_ids)):
             rows = self._scan("documents", ["doc_id", "segments"], in_filter("doc_id", part))
             out.update(zip(rows["doc_id"].to_pylist(), rows["segments"].to_pylist(), strict=True))
         return out
@@ -424,7 +281,7 @@ class Store:
     def chunk_keys(self, doc_ids: Sequence[str]) -> dict[str, list[tuple[str, int]]]:
         """(chunk_id, ordinal) pairs of the given documents, by doc_id."""
         out: dict[str, list[tuple[str, int]]] = {}
-        for part in _batched(list(doc_ids)):
+        for part in batched(list(doc_ids)):
             rows = self._scan(
                 "chunks", ["doc_id", "chunk_id", "ordinal"], in_filter("doc_id", part)
             )
@@ -483,7 +340,7 @@ class Store:
             missing = [h for h in wanted if h not in found]
             if not missing:
                 break
-            for part in _batched(missing):
+            for part in batched(missing):
                 rows = self._scan(name, ["text_hash", "vector"], in_filter("text_hash", part))
                 if rows.num_rows == 0:
                     continue
@@ -513,7 +370,7 @@ class Store:
 
     def tombstone_ids(self, ids: Sequence[str]) -> set[str]:
         have: set[str] = set()
-        for part in _batched(list(ids)):
+        for part in batched(list(ids)):
             rows = self._scan("tombstones", ["tombstone_id"], in_filter("tombstone_id", part))
             have.update(rows["tombstone_id"].to_pylist())
         return have
@@ -586,12 +443,12 @@ class Store:
 
     def drop_tombstones(self, tombstone_ids: Sequence[str]) -> None:
         """Delete tombstones by id; only for those of a commit that never landed."""
-        for part in _batched(list(tombstone_ids)):
+        for part in batched(list(tombstone_ids)):
             self._t["tombstones"].delete(in_filter("tombstone_id", part))
 
     def adopt_tombstones(self, tombstone_ids: Sequence[str], commit_id: str) -> None:
         """Make ``commit_id`` the commit of these tombstones (whose own commit never landed)."""
-        for part in _batched(list(tombstone_ids)):
+        for part in batched(list(tombstone_ids)):
             self._t["tombstones"].update(
                 where=in_filter("tombstone_id", part), values={"commit_id": commit_id}
             )

@@ -28,7 +28,7 @@ from typing import Any
 
 import numpy as np
 
-from pipeline.embedding import default_embedder
+from pipeline.embedding.onnx import default_embedder
 
 EMBEDDINGS_PATH = "/v1/embeddings"
 

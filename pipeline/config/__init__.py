@@ -26,28 +26,15 @@ from typing import Any
 from connectors import KINDS as CONNECTOR_KINDS
 from connectors import build as build_connector
 from connectors.folder import DEFAULT_EXCLUDE, FolderSource
-
-from . import formats
-from .errors import UsageError
-from .store import is_remote
+from pipeline import defaults, formats
+from pipeline.errors import UsageError
+from pipeline.locations import is_remote
+from pipeline.units import parse_duration
 
 CONFIG_ENV = "UPWELL_CONFIG"
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
-_DURATION = re.compile(r"^(?:(\d+)h)?(?:(\d+)m)?(?:(\d+(?:\.\d+)?)s)?$")
 _CLOCK = re.compile(r"^([01]\d|2[0-3]):([0-5]\d)$")
 SOURCE_KINDS = tuple(CONNECTOR_KINDS)
-
-
-def parse_duration(text: str) -> float:
-    """Seconds in ``"90s"``, ``"15m"``, ``"1h"`` or ``"1h30m"``; ValueError otherwise."""
-    match = _DURATION.match(text.strip())
-    if not text.strip() or not match or not any(match.groups()):
-        raise ValueError(f'{text!r} is not a duration such as "30s", "15m", "1h" or "1h30m"')
-    hours, minutes, seconds = match.groups()
-    total = int(hours or 0) * 3600 + int(minutes or 0) * 60 + float(seconds or 0)
-    if total <= 0:
-        raise ValueError(f"{text!r} is not a positive duration")
-    return total
 
 
 @dataclass(frozen=True)
@@ -86,7 +73,9 @@ class SourceConfig:
         def fail(key: str, problem: str) -> Any:
             raise UsageError(f"config {self.file}: source {self.name!r}.{key} {problem}")
 
-        state = (state_root or Path(".upwell") / "connector-state") / self.name
+        state = (
+            state_root or Path(defaults.INDEX_FOLDER) / defaults.CONNECTOR_STATE_FOLDER
+        ) / self.name
         return build_connector(self.kind, self.name, self.options, fail, state)
 
     def folder_source(self) -> FolderSource:
@@ -116,11 +105,13 @@ class ServiceConfig:
 
     settle_seconds: float = 1.0  # a file is read once size and mtime stayed still this long
     batch_seconds: float = 0.2  # after the first settled file, gather more for this long
-    batch_documents: int = 50  # documents per commit; bounds the work a stop has to wait for
+    batch_documents: int = defaults.SERVICE_BATCH_DOCUMENTS
     reconcile_every: float = 3600.0
     maintenance_at: str = "03:30"  # local time, HH:MM
     paused: bool = False  # true: take events, write nothing until unpaused (SIGHUP)
-    keep_days: float = 30.0  # nightly maintenance keeps versions this many days (tagged: always)
+    keep_days: float = (
+        defaults.KEEP_DAYS
+    )  # nightly maintenance keeps versions this many days (tagged: always)
 
 
 @dataclass(frozen=True)

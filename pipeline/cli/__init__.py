@@ -13,18 +13,16 @@ import textwrap
 from collections.abc import Sequence
 from typing import Any
 
-from . import service_cli
-from .config import CONFIG_ENV, config_path_from, load_config
-from .errors import UpwellError, UsageError
-from .history_cli import add_history_commands
-from .index import DEFAULT_INDEX, Index, default_index_path
-from .progress import Progress
-
-EXIT_OK, EXIT_ERROR, EXIT_USAGE, EXIT_PARTIAL, EXIT_LOCKED = 0, 1, 2, 3, 4
+from pipeline.cli import service_commands as service_cli
+from pipeline.cli.history_commands import add_history_commands
+from pipeline.config import CONFIG_ENV, config_path_from, load_config
+from pipeline.errors import EXIT_OK, EXIT_PARTIAL, UpwellError, UsageError
+from pipeline.index import DEFAULT_INDEX, Index, default_index_path
+from pipeline.progress import Progress
 
 DESCRIPTION = """\
 upwell keeps a document vector index current. It reads folders of PDF, Word (.docx),
-Markdown, plain text and WebVTT/SRT transcripts, splits them into chunks whose boundaries
+Markdown, plain text, HTML and WebVTT/SRT transcripts, splits them into chunks whose boundaries
 survive edits, embeds only chunks whose text changed, and commits each batch as one version
 of a local LanceDB table that you can search with citations.
 """
@@ -369,7 +367,3 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("upwell: interrupted", file=sys.stderr)
         return 130
-
-
-if __name__ == "__main__":
-    sys.exit(main())

@@ -20,230 +20,26 @@ Guarantees:
 
 from __future__ import annotations
 
-import json
 import logging
 import os
 import signal
-import sys
 import threading
 import time
-from collections.abc import Callable
-from dataclasses import dataclass, field
-from datetime import datetime
-from pathlib import Path
-from typing import Any, TypeVar
+from typing import Any
 
 from apscheduler.schedulers.background import BackgroundScheduler
 from apscheduler.triggers.cron import CronTrigger
 from apscheduler.triggers.interval import IntervalTrigger
-from watchdog.events import FileSystemEvent, FileSystemEventHandler
 from watchdog.observers import Observer
 
-from connectors.folder import path_matches
-
-from .config import Config, SourceConfig, load_config
-from .errors import ConfirmationRequired, SourceError, SyncPaused, UpwellError
-from .index import Index
-from .metrics import ServiceMetrics
-from .sync import SyncReport
+from pipeline.config import Config, SourceConfig, load_config
+from pipeline.engine.reports import SyncReport
+from pipeline.errors import ConfirmationRequired, SourceError, SyncPaused, UpwellError
+from pipeline.index import Index
+from pipeline.service.metrics import ServiceMetrics
+from pipeline.service.watching import POLL_SECONDS, SettleQueue, SourceEvents, WorkQueue
 
 log = logging.getLogger("upwell.service")
-T = TypeVar("T")
-
-POLL_SECONDS = 0.1  # how often settling paths are re-checked
-MAX_SETTLE_WAIT = 60.0  # a file written for longer than this is synced anyway, and again later
-
-
-# --- logging ---------------------------------------------------------------------------------
-
-
-class JsonLineFormatter(logging.Formatter):
-    """One JSON object per line: time, level, message, and the record's ``fields``."""
-
-    def format(self, record: logging.LogRecord) -> str:
-        data: dict[str, Any] = {
-            "time": datetime.fromtimestamp(record.created)
-            .astimezone()
-            .isoformat(timespec="milliseconds"),
-            "level": record.levelname.lower(),
-            "message": record.getMessage(),
-        }
-        data.update(getattr(record, "fields", {}))
-        if record.exc_info:
-            data["traceback"] = self.formatException(record.exc_info)
-        return json.dumps(data, ensure_ascii=False, default=str)
-
-
-def configure_logging(log_format: str = "text") -> None:
-    """Log lines on stderr, as plain text or JSON lines."""
-    handler = logging.StreamHandler(sys.stderr)
-    if log_format == "json":
-        handler.setFormatter(JsonLineFormatter())
-    else:
-        handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
-    root = logging.getLogger("upwell")
-    root.handlers[:] = [handler]
-    root.setLevel(logging.INFO)
-    root.propagate = False
-
-
-# --- the settle queue ------------------------------------------------------------------------
-
-
-def _stat_signature(path: Path) -> tuple[int, int] | None:
-    try:
-        st = path.stat()
-    except OSError:
-        return None  # gone (deleted or moved out): its absence has to settle too
-    return (st.st_size, st.st_mtime_ns)
-
-
-@dataclass
-class _Settling:
-    path: Path
-    first_event: float
-    last_change: float
-    signature: tuple[int, int] | None
-
-
-class SettleQueue:
-    """Paths keyed by (source, path) that become ready once they stop changing.
-
-    ``note`` (re)arms a path; ``settled`` returns the paths whose size and mtime have not changed
-    for ``settle_seconds`` since the last event. Thread-safe.
-    """
-
-    def __init__(self, settle_seconds: float, clock: Callable[[], float] = time.monotonic):
-        self.settle_seconds = settle_seconds
-        self._clock = clock
-        self._lock = threading.Lock()
-        self._items: dict[tuple[str, str], _Settling] = {}
-
-    def note(self, source: str, path: Path) -> None:
-        now = self._clock()
-        signature = _stat_signature(path)
-        with self._lock:
-            item = self._items.get((source, str(path)))
-            if item is None:
-                self._items[(source, str(path))] = _Settling(path, now, now, signature)
-            else:
-                item.last_change, item.signature = now, signature
-
-    def settled(self) -> list[tuple[str, Path]]:
-        now = self._clock()
-        with self._lock:
-            items = list(self._items.items())
-        ready = []
-        for key, item in items:
-            signature = _stat_signature(item.path)  # stat outside the lock: it may be slow
-            with self._lock:
-                if signature != item.signature:
-                    item.signature, item.last_change = signature, now
-                quiet = now - item.last_change >= self.settle_seconds
-                if quiet or now - item.first_event >= MAX_SETTLE_WAIT:
-                    self._items.pop(key, None)
-                    ready.append((key[0], item.path))
-        return ready
-
-    def __len__(self) -> int:
-        with self._lock:
-            return len(self._items)
-
-
-# --- the work queue --------------------------------------------------------------------------
-
-
-@dataclass
-class _Work:
-    sources: dict[str, str] = field(default_factory=dict)  # source name -> trigger
-    paths: int = 0
-    maintenance: bool = False
-    first_at: float | None = None
-
-
-class WorkQueue:
-    """What the writer has to do next: sources to sync (with their trigger) and maintenance."""
-
-    def __init__(self) -> None:
-        self._cond = threading.Condition()
-        self._work = _Work()
-
-    def add_source(self, name: str, trigger: str, paths: int = 0) -> None:
-        with self._cond:
-            # A watch trigger does not downgrade a pending reconcile or scheduled scan.
-            self._work.sources.setdefault(name, trigger)
-            self._work.paths += paths
-            if self._work.first_at is None:
-                self._work.first_at = time.monotonic()
-            self._cond.notify_all()
-
-    def add_maintenance(self) -> None:
-        with self._cond:
-            self._work.maintenance = True
-            if self._work.first_at is None:
-                self._work.first_at = time.monotonic()
-            self._cond.notify_all()
-
-    def take(
-        self, stop: threading.Event, window: float, max_paths: int, timeout: float = 0.5
-    ) -> _Work | None:
-        """The pending work, once ``window`` has passed since the first of it (or it is full)."""
-        with self._cond:
-            deadline = time.monotonic() + timeout
-            while self._work.first_at is None:
-                left = deadline - time.monotonic()
-                if left <= 0 or stop.is_set():
-                    return None
-                self._cond.wait(min(left, 0.1))
-            while not stop.is_set() and self._work.paths < max_paths:
-                left = self._work.first_at + window - time.monotonic()
-                if left <= 0:
-                    break
-                self._cond.wait(left)
-            work, self._work = self._work, _Work()
-            return work
-
-    def depth(self) -> int:
-        with self._cond:
-            return self._work.paths
-
-
-# --- watching ------------------------------------------------------------------------------
-
-
-class _SourceEvents(FileSystemEventHandler):
-    """Feeds every path an event names (both ends of a move) into the settle queue."""
-
-    def __init__(self, source: SourceConfig, queue: SettleQueue, on_note: Callable[[], None]):
-        self.source = source
-        self.root = source.path or Path(".")  # only folder sources are watched
-        self.queue = queue
-        self.on_note = on_note
-
-    def on_any_event(self, event: FileSystemEvent) -> None:
-        if event.event_type in ("opened", "closed_no_write"):
-            return
-        if event.is_directory and event.event_type == "modified":
-            return  # a folder's mtime moves with every file created in it: noise
-        for raw in (event.src_path, getattr(event, "dest_path", "")):
-            if not raw:
-                continue
-            path = Path(os.fsdecode(raw))
-            try:
-                rel = path.relative_to(self.root).as_posix()
-            except ValueError:
-                continue  # the far end of a move out of (or into) the tree
-            if rel == ".":
-                continue
-            if not event.is_directory and self._ignored(rel):
-                continue
-            self.queue.note(self.source.name, path)
-            self.on_note()
-
-    def _ignored(self, rel: str) -> bool:
-        # Editor temp files and the like would only cause an empty sync.
-        return path_matches(rel, self.source.exclude) or not path_matches(rel, self.source.include)
-
 
 # --- the service ---------------------------------------------------------------------------
 
@@ -290,7 +86,7 @@ class Service:
     # --- life cycle -------------------------------------------------------------------------
 
     def run(self, install_signals: bool = True) -> int:
-        from .http_api import start_http_server
+        from pipeline.service.api import start_http_server
 
         with self.index.writing():
             log.info(
@@ -406,7 +202,7 @@ class Service:
 
     def _watch(self, source: SourceConfig) -> None:
         observer = Observer()
-        handler = _SourceEvents(source, self.settle, self._queue_changed)
+        handler = SourceEvents(source, self.settle, self._queue_changed)
         try:
             observer.schedule(handler, str(source.path), recursive=True)
             observer.start()

@@ -1,0 +1,189 @@
+"""Keeping the index folder healthy: compaction, version retention, scalar indexes, erasure.
+
+Every sync adds versions and small data files; many small commits slow search down (measured
+with lancedb 0.40: 1,000 commits of 10 rows leave 4,000 files and take a flat query from 8 ms to
+71 ms; compaction with cleanup brings it back). ``compact_and_clean`` rewrites small fragments
+and removes versions past retention. Tagged versions and the state a paused rollback replaced
+are pinned by Lance tags, which cleanup skips.
+
+Erasure is the one operation that rewrites history: it deletes a document's rows, compacts with
+deletions materialised, and removes every old version that still holds them.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import warnings
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from datetime import timedelta
+from typing import Any
+
+from pipeline.errors import StoreError, first_line
+from pipeline.store.schema import MAINTAINED_VERSIONS, TABLES
+from pipeline.store.tables import Store
+
+log = logging.getLogger("upwell.store")
+
+# Scalar indexes worth having once a table is this large (smaller tables scan faster).
+SCALAR_INDEX_MIN_ROWS = 5_000
+SCALAR_INDEXES = {"chunks": ("doc_id", "text_hash", "source"), "vectors": ("text_hash",)}
+# Past this many chunks an exact scan costs tens of milliseconds a query: build an ANN index.
+# Measured with lancedb 0.40 at 100,000 rows on 2 cores: exact scan 150-190 ms; IVF_SQ builds
+# in 8-11 s and answers in about 6 ms with recall@10 1.00 at nprobes 20, refine_factor 5.
+VECTOR_INDEX_MIN_ROWS = 20_000
+
+
+@dataclass
+class MaintenanceReport:
+    tables: dict[str, dict[str, Any]] = field(default_factory=dict)
+    indexes_created: list[str] = field(default_factory=list)
+
+    def as_dict(self) -> dict[str, Any]:
+        return {"tables": self.tables, "indexes_created": self.indexes_created}
+
+
+def compact_and_clean(
+    store: Store,
+    older_than: timedelta,
+    *,
+    materialize_deletions: bool = False,
+    tables: Sequence[str] = TABLES,
+) -> MaintenanceReport:
+    """Compact every table, then remove versions older than ``older_than`` (tags are kept).
+
+    With ``materialize_deletions`` deleted rows are rewritten out of the data files too, and
+    files no version references are removed at once (erasure needs both).
+    """
+    report = MaintenanceReport()
+    for name in tables:
+        table = store.table(name)
+        table.checkout_latest()
+        ds = table.to_lance()
+        before_files = _data_files(ds)
+        try:
+            ds.optimize.compact_files(
+                materialize_deletions=materialize_deletions or None,
+                materialize_deletions_threshold=0.0 if materialize_deletions else None,
+            )
+            # Each step makes a new version; the table handle must see it before the next step
+            # (a cleanup through a stale handle keeps every version newer than its own).
+            table.checkout_latest()
+            ds = table.to_lance()
+            if ds.describe_indices():
+                ds.optimize.optimize_indices()
+                table.checkout_latest()
+                ds = table.to_lance()
+            stats = ds.cleanup_old_versions(
+                older_than=older_than,
+                delete_unverified=materialize_deletions,
+                error_if_tagged_old_versions=False,
+            )
+        except (ValueError, RuntimeError, OSError) as exc:
+            raise StoreError(f"maintenance of the {name} table failed: {first_line(exc)}") from None
+        table.checkout_latest()
+        ds = table.to_lance()
+        if name in MAINTAINED_VERSIONS:
+            store.update_setting(MAINTAINED_VERSIONS[name], int(table.version))
+        report.tables[name] = {
+            "versions_removed": int(stats.old_versions),
+            "bytes_removed": int(stats.bytes_removed),
+            "data_files_before": before_files,
+            "data_files_after": _data_files(ds),
+            "versions_kept": len(ds.versions()),
+        }
+    return report
+
+
+# Every commit appends a small fragment to the documents and commits tables, and a rescan reads
+# both whole: measured at 20,000 documents built in batches of 200 (100 fragments), the narrow
+# scan of the documents table took 33 ms, and 6 ms once compacted. Compacting them costs about
+# 0.5 s at that size and removes no version, so a sync does it itself past this many fragments.
+TIDY_MIN_FRAGMENTS = 32
+TIDY_TABLES = ("documents", "commits")
+
+
+def tidy_small_tables(store: Store, min_fragments: int = TIDY_MIN_FRAGMENTS) -> list[str]:
+    """Compact the documents and commits tables once either has many fragments.
+
+    Only files are merged: every version stays readable, so history, ``--as-of`` and rollback
+    see no difference. Returns the tables compacted. A failure is logged, never raised: the
+    sync that calls this has already committed.
+    """
+    done = []
+    for name in TIDY_TABLES:
+        table = store.table(name)
+        try:
+            ds = table.to_lance()
+            if len(ds.get_fragments()) < min_fragments:
+                continue
+            ds.optimize.compact_files()
+        except (ValueError, RuntimeError, OSError) as exc:
+            log.warning("could not compact the %s table: %s", name, first_line(exc))
+            continue
+        table.checkout_latest()
+        done.append(name)
+    return done
+
+
+def _data_files(ds: Any) -> int:
+    return sum(len(fragment.data_files()) for fragment in ds.get_fragments())
+
+
+def ensure_indexes(
+    store: Store,
+    *,
+    scalar_min_rows: int = SCALAR_INDEX_MIN_ROWS,
+    vector_min_rows: int = VECTOR_INDEX_MIN_ROWS,
+) -> list[str]:
+    """Scalar indexes and the vector index, each once its table is large enough.
+
+    Building an index makes a chunks version that no commit records; it is noted in the
+    settings so the next sync does not take it for an interrupted batch.
+    """
+    created = ensure_scalar_indexes(store, scalar_min_rows)
+    chunks = store.table("chunks")
+    if not _has_vector_index(chunks) and chunks.count_rows() >= vector_min_rows:
+        rows = chunks.count_rows()
+        with warnings.catch_warnings():
+            # lancedb 0.40 prefers a config object; these keyword arguments still work.
+            warnings.simplefilter("ignore", DeprecationWarning)
+            chunks.create_index(
+                metric="cosine",
+                vector_column_name="vector",
+                index_type="IVF_SQ",
+                num_partitions=max(1, int(math.sqrt(rows))),
+            )
+        created.append("chunks.vector (IVF_SQ)")
+    if created:
+        chunks.checkout_latest()
+        store.update_setting(MAINTAINED_VERSIONS["chunks"], int(chunks.version))
+    return created
+
+
+def _has_vector_index(table: Any) -> bool:
+    return any("vector" in tuple(ix.columns) for ix in table.list_indices())
+
+
+def ensure_scalar_indexes(store: Store, min_rows: int = SCALAR_INDEX_MIN_ROWS) -> list[str]:
+    """BTREE indexes on the columns every sync filters by, once a table is large enough.
+
+    Measured with lancedb 0.40: a BTREE on doc_id takes a filtered lookup from 200 ms to 5 ms
+    at 100,000 rows. Returns the indexes created.
+    """
+    created = []
+    for name, columns in SCALAR_INDEXES.items():
+        table = store.table(name)
+        if table.count_rows() < min_rows:
+            continue
+        have = {tuple(ix.columns) for ix in table.list_indices()}
+        for column in columns:
+            if (column,) in have:
+                continue
+            with warnings.catch_warnings():
+                # Deprecated in lancedb 0.40, but its replacement only builds vector indexes.
+                warnings.simplefilter("ignore", DeprecationWarning)
+                table.create_scalar_index(column, index_type="BTREE", replace=False)
+            created.append(f"{name}.{column}")
+    return created
