@@ -28,7 +28,7 @@ from typing import Any
 import numpy as np
 import pyarrow as pa
 
-from bench import baselines, corpora
+from bench import baselines, corpora, quality
 
 REPO = Path(__file__).resolve().parents[1]
 
@@ -49,6 +49,7 @@ class Sizes:
     edits_per_kind: int = 50
     raw_embed_sample: int | None = None  # None: every chunk text of the build
     large_build_documents: int | None = 20_000
+    quick_retrieval: bool = False  # True: the question set once, without the chunk-size sweep
 
     @classmethod
     def quick(cls) -> Sizes:
@@ -61,6 +62,7 @@ class Sizes:
             edits_per_kind=10,
             raw_embed_sample=1_000,
             large_build_documents=None,
+            quick_retrieval=True,
         )
 
 
@@ -527,13 +529,34 @@ def _chunk_rows(start: int, vectors: np.ndarray, chunks_per_doc: int) -> pa.Tabl
         "source": pa.array(["bench"] * n, pa.string()),
         "path": pa.array([f"doc-{i // chunks_per_doc:06d}.md" for i in ids], pa.string()),
         "ordinal": pa.array([i % chunks_per_doc for i in ids], pa.int32()),
-        "text": pa.array([f"Generated chunk {i} of the Marrowby search benchmark." for i in ids]),
+        "text": pa.array(_chunk_texts(start, n)),
         "text_hash": pa.array([f"{i:064x}" for i in ids], pa.string()),
         "media_type": pa.array(["text/markdown"] * n, pa.string()),
         "vector": pa.FixedSizeListArray.from_arrays(pa.array(vectors.ravel()), dim),
     }
     arrays = [columns.get(f.name, pa.nulls(n, f.type)) for f in schema]
     return pa.Table.from_arrays(arrays, schema=schema)
+
+
+#: Made-up words for the generated chunk texts: a Zipf-like draw from them gives the keyword
+#: index realistic posting lists (a few very common words, a long tail of rare ones).
+_VOCABULARY = [
+    a + b + c
+    for a in ("br", "cl", "gr", "st", "pl", "tr", "sp", "fl", "dr", "cr")
+    for b in ("a", "e", "i", "o", "u", "ai", "ea", "ou")
+    for c in ("ke", "mp", "nd", "ck", "st", "rn", "ll", "sh", "x", "ve", "rt", "ne")
+]
+
+
+def _chunk_texts(start: int, n: int) -> list[str]:
+    rng = np.random.default_rng(start + 7)
+    ranks = np.arange(1, len(_VOCABULARY) + 1)
+    weights = 1.0 / ranks
+    draws = rng.choice(len(_VOCABULARY), size=(n, 40), p=weights / weights.sum())
+    return [
+        " ".join(_VOCABULARY[w] for w in row) + f" part MCW-{start + i:06d}"
+        for i, row in enumerate(draws)
+    ]
 
 
 def _exact_top_k(matrix: np.ndarray, query: np.ndarray, k: int) -> np.ndarray:
@@ -628,6 +651,48 @@ def search(bench: Bench) -> Figure:
     recall = float(statistics.fmean(recalls))
 
     filtered_btree = filtered_p50()
+
+    # Keyword and hybrid over the same rows (the keyword index a sync keeps: built at creation,
+    # folded by ensure_indexes above). Queries: two words of the vocabulary's middle ranks and,
+    # for a third of them, a part number, as people type them.
+    from pipeline import retrieval
+    from pipeline.index import KEYWORD_SEARCH_COLUMNS
+
+    texts = [
+        " ".join(_VOCABULARY[int(w)] for w in rng.integers(20, 400, 2))
+        + (f" MCW-{int(rng.integers(0, n)):06d}" if i % 3 == 0 else "")
+        for i in range(len(queries))
+    ]
+
+    def keyword_query(text: str, depth: int = k) -> list[dict[str, Any]]:
+        return retrieval.keyword_rows(table, text, depth, KEYWORD_SEARCH_COLUMNS, None)
+
+    def hybrid_query(q: np.ndarray, text: str) -> list[Any]:
+        return retrieval.run_search(
+            mode="hybrid",
+            k=k,
+            per_doc=None,
+            vector_rows=lambda depth: store.search(q, depth, SEARCH_COLUMNS),
+            keyword_rows=lambda depth: keyword_query(text, depth),
+        )
+
+    for q, text in list(zip(queries, texts, strict=True))[:5]:
+        keyword_query(text)
+        hybrid_query(q, text)
+    keyword_times, hybrid_times, vector_again = [], [], []
+    for q, text in zip(queries, texts, strict=True):
+        started = time.perf_counter()
+        engine_query(q)
+        vector_again.append(time.perf_counter() - started)
+        started = time.perf_counter()
+        keyword_query(text)
+        keyword_times.append(time.perf_counter() - started)
+        started = time.perf_counter()
+        hybrid_query(q, text)
+        hybrid_times.append(time.perf_counter() - started)
+    hybrid_ratio = pct(hybrid_times, 50) / pct(vector_again, 50)
+    keyword_p50_ms = pct(keyword_times, 50) * 1000
+
     value = {
         "p50_ratio": p50_ratio,
         "p95_ratio": p95_ratio,
@@ -644,6 +709,9 @@ def search(bench: Bench) -> Figure:
         "flat_p50_ratio": pct(flat_times, 50) / pct(exact_times, 50),
         "indexes_created": created,
         "index_build_s": index_build_s,
+        "keyword_p50_ms": keyword_p50_ms,
+        "hybrid_p50_ms": pct(hybrid_times, 50) * 1000,
+        "hybrid_over_vector_p50": hybrid_ratio,
     }
     rows = [
         (
@@ -671,6 +739,18 @@ def search(bench: Bench) -> Figure:
             f"{value['flat_p50_ms']:.1f} ms ({value['flat_p50_ratio']:.1f}x numpy)",
             "",
             "info",
+        ),
+        (
+            f"hybrid p50 / vector p50, {n} rows",
+            f"{hybrid_ratio:.2f}",
+            "<= 2.5",
+            _verdict(hybrid_ratio <= 2.5),
+        ),
+        (
+            "keyword p50",
+            f"{keyword_p50_ms:.1f} ms",
+            "<= 20 ms",
+            _verdict(keyword_p50_ms <= 20.0),
         ),
         (
             "  (info) indexes built past the thresholds",
@@ -910,6 +990,153 @@ def save_to_searchable(bench: Bench) -> Figure:
     return Figure("save_to_searchable", value, rows)
 
 
+def retrieval(bench: Bench) -> Figure:
+    """Search quality on the labelled question set (see bench/quality.py), per mode."""
+    questions = quality.load_questions()
+    modes = ("vector", "keyword", "hybrid")
+    ix = quality.build_question_index(bench, "default")
+    measured = quality.evaluate(ix, questions, modes)
+    chunks = ix.status()["totals"]["chunks"]
+    rows: list[tuple[str, str, str, str]] = []
+    counts = {k: sum(1 for q in questions if q.kind == k) for k in quality.KINDS}
+    rows.append(
+        (
+            f"{len(questions)} questions ({counts['paraphrase']} paraphrase, "
+            f"{counts['identifier']} identifier), {chunks} chunks",
+            "",
+            "",
+            "info",
+        )
+    )
+    for mode in modes:
+        m = measured[mode]
+        rows.append(
+            (
+                f"  {mode}: hit@1 / hit@3 / MRR@10 / nDCG@10",
+                f"{m['all']['hit_at_1']:.2f} / {m['all']['hit_at_3']:.2f} / "
+                f"{m['all']['mrr_at_10']:.3f} / {m['all']['ndcg_at_10']:.3f}",
+                "",
+                "info",
+            )
+        )
+        for kind in quality.KINDS:
+            rows.append(
+                (
+                    f"    {kind} hit@1 / MRR@10",
+                    f"{m[kind]['hit_at_1']:.2f} / {m[kind]['mrr_at_10']:.3f}",
+                    "",
+                    "info",
+                )
+            )
+    hy, ve, kw = measured["hybrid"], measured["vector"], measured["keyword"]
+    rows.append(
+        (
+            "hybrid MRR@10 above vector and keyword",
+            f"{hy['all']['mrr_at_10']:.3f} vs {ve['all']['mrr_at_10']:.3f}, "
+            f"{kw['all']['mrr_at_10']:.3f}",
+            "above both",
+            _verdict(hy["all"]["mrr_at_10"] > max(ve["all"]["mrr_at_10"], kw["all"]["mrr_at_10"])),
+        )
+    )
+    rows.append(
+        (
+            "hybrid identifier hit@1",
+            f"{hy['identifier']['hit_at_1']:.2f}",
+            ">= 0.90",
+            _verdict(hy["identifier"]["hit_at_1"] >= 0.9),
+        )
+    )
+    rows.append(
+        (
+            "hybrid paraphrase hit@1 vs vector",
+            f"{hy['paraphrase']['hit_at_1']:.2f} vs {ve['paraphrase']['hit_at_1']:.2f}",
+            "no lower",
+            _verdict(hy["paraphrase"]["hit_at_1"] >= ve["paraphrase"]["hit_at_1"]),
+        )
+    )
+    extra: dict[str, Any] = {}
+    if not bench.sizes.quick_retrieval:
+        sweep: dict[str, Any] = {}
+        for name, settings in quality.CHUNK_VARIANTS.items():
+            variant = (
+                ix if name == "48-200" else quality.build_question_index(bench, name, settings)
+            )
+            got = quality.evaluate(variant, questions, ("vector", "hybrid"))
+            sweep[name] = {
+                "chunks": variant.status()["totals"]["chunks"],
+                **{mode: got[mode]["all"] for mode in ("vector", "hybrid")},
+            }
+            rows.append(
+                (
+                    f"  chunks {name} tokens: vector / hybrid MRR@10",
+                    f"{got['vector']['all']['mrr_at_10']:.3f} / "
+                    f"{got['hybrid']['all']['mrr_at_10']:.3f}",
+                    "",
+                    "info",
+                )
+            )
+        extra["retrieval_chunk_sizes"] = sweep
+    return Figure("retrieval", measured, rows, extra)
+
+
+def keyword_sync_cost(bench: Bench) -> Figure:
+    """Wall time of a one-document sync with the keyword index kept current, over the same
+    sync with no keyword index (upwell before keyword search), measured side by side: two
+    indexes of one corpus, each edit synced to both in turn, medians compared."""
+    import shutil
+
+    from pipeline import Index
+    from pipeline.store import upkeep
+
+    documents = max(12, bench.sizes.build_documents // 10)
+    corpus = bench.workdir / "keyword-sync-corpus"
+    corpora.write_corpus(corpus, documents)
+    roots = {}
+    indexes = {}
+    for name in ("with", "without"):
+        roots[name] = bench.workdir / f"keyword-sync-{name}" / "share"
+        shutil.copytree(corpus, roots[name])
+        indexes[name] = Index(bench.workdir / f"keyword-sync-{name}" / "ix", model=bench.model)
+    keep = upkeep.ensure_keyword_index
+    times: dict[str, list[float]] = {"with": [], "without": []}
+    edits = max(3, bench.sizes.saves)
+    try:
+        for step in range(edits + 1):
+            for name in ("with", "without"):
+                if name == "without":
+                    upkeep.ensure_keyword_index = lambda store, *a, **kw: []
+                else:
+                    upkeep.ensure_keyword_index = keep
+                ix = indexes[name]
+                if step == 0:
+                    ix.sync([roots[name]])
+                    if name == "without":
+                        chunks = ix.store().table("chunks")
+                        for index_name in upkeep.keyword_index_names(chunks).values():
+                            chunks.drop_index(index_name)
+                    continue
+                corpora.write_document(roots[name], (step * 7) % documents, edits=step)
+                started = time.perf_counter()
+                ix.sync([roots[name]])
+                times[name].append(time.perf_counter() - started)
+    finally:
+        upkeep.ensure_keyword_index = keep
+    with_s = statistics.median(times["with"])
+    without_s = statistics.median(times["without"])
+    ratio = with_s / without_s
+    value = {"ratio": ratio, "with_s": with_s, "without_s": without_s, "syncs": edits}
+    rows = [
+        (
+            f"one-document sync, keyword index kept / none ({documents} documents)",
+            f"{ratio:.2f}",
+            "<= 1.5",
+            _verdict(ratio <= 1.5),
+        ),
+        ("  (info) median with, without", f"{with_s:.2f} s, {without_s:.2f} s", "", "info"),
+    ]
+    return Figure("keyword_sync_cost", value, rows)
+
+
 FIGURES: dict[str, Callable[[Bench], Figure]] = {
     "edit_locality": edit_locality,
     "incremental_ratio": incremental_ratio,
@@ -919,4 +1146,6 @@ FIGURES: dict[str, Callable[[Bench], Figure]] = {
     "peak_rss_mb": peak_rss_mb,
     "many_commits": many_commits,
     "save_to_searchable": save_to_searchable,
+    # "retrieval": registered with its question set
+    "keyword_sync_cost": keyword_sync_cost,
 }

@@ -28,10 +28,10 @@ import numpy as np
 
 from connectors.base import Source
 from connectors.folder import FolderSource
-from pipeline import defaults, formats, history
+from pipeline import defaults, formats, history, retrieval
 from pipeline.embedding import make_embedder
 from pipeline.embedding.base import Embedder
-from pipeline.engine.recovery import recover_interrupted_batch
+from pipeline.engine.recovery import recover_for_writing
 from pipeline.engine.reports import CommitResult, SyncReport
 from pipeline.engine.sync import SyncEngine
 from pipeline.errors import (
@@ -59,7 +59,7 @@ from pipeline.records import (
 )
 from pipeline.status import index_status
 from pipeline.store import upkeep
-from pipeline.store.ids import new_commit_id, quote, utc_now
+from pipeline.store.ids import new_commit_id, utc_now
 from pipeline.store.schema import FORMAT_VERSION
 from pipeline.store.tables import Store
 
@@ -82,6 +82,7 @@ SEARCH_COLUMNS = [
     "line_start",
     "line_end",
 ]
+KEYWORD_SEARCH_COLUMNS = [c for c in SEARCH_COLUMNS if c != "_distance"]
 
 
 def default_index_path() -> str:
@@ -106,6 +107,8 @@ class Hit:
     doc_id: str
     chunk_id: str
     ordinal: int
+    vector_rank: int | None = None  # rank in the vector list (1 = best); None if absent
+    keyword_rank: int | None = None  # rank in the keyword list; None if absent
 
     def citation(self) -> str:
         """``path, p. 3``, ``path > Heading``, ``path @ 00:01:05-00:01:20`` and so on."""
@@ -141,7 +144,31 @@ class Hit:
             "line_start": self.line_start,
             "line_end": self.line_end,
             "doc_id": self.doc_id,
+            "vector_rank": self.vector_rank,
+            "keyword_rank": self.keyword_rank,
         }
+
+
+def _hit(r: retrieval.Ranked) -> Hit:
+    row = r.row
+    return Hit(
+        score=r.score,
+        source=row["source"],
+        path=row["path"],
+        text=row["text"],
+        page=row["page_start"],
+        page_end=row["page_end"],
+        heading=row["heading"],
+        start=row["t_start"],
+        end=row["t_end"],
+        line_start=row["line_start"],
+        line_end=row["line_end"],
+        doc_id=row["doc_id"],
+        chunk_id=row["chunk_id"],
+        ordinal=row["ordinal"],
+        vector_rank=r.vector_rank,
+        keyword_rank=r.keyword_rank,
+    )
 
 
 def _clock(seconds: float) -> str:
@@ -253,11 +280,7 @@ class Index:
         sync does it itself, to report it), what a writer killed mid-batch left is cleaned up
         in a commit whose trigger is ``recover:RECOVER``."""
         store = self.store()
-        store.refresh()
-        history.complete_pending(store)
-        erasure.complete_pending_erase(store)
-        if recover is not None:
-            recover_interrupted_batch(store, recover)
+        recover_for_writing(store, recover)
         return store
 
     # --- writing --------------------------------------------------------------------------------
@@ -431,16 +454,36 @@ class Index:
     # --- reading --------------------------------------------------------------------------------
 
     def search(
-        self, query: str, k: int = 10, *, source: str | None = None, as_of: str | None = None
+        self,
+        query: str,
+        k: int = 10,
+        *,
+        source: str | Sequence[str] | None = None,
+        as_of: str | None = None,
+        mode: str = retrieval.DEFAULT_MODE,
+        paths: Sequence[str] = (),
+        types: Sequence[str] = (),
+        since: str | None = None,
+        per_doc: int | None = None,
     ) -> list[Hit]:
-        """The ``k`` chunks most similar to ``query`` by cosine similarity, best first.
+        """The ``k`` best chunks for ``query``, best first.
 
-        With ``as_of`` (any REF: commit, version, tag or time) the index as it was then.
+        ``mode``: ``hybrid`` (default; vector and keyword lists fused by reciprocal rank),
+        ``vector`` (cosine similarity) or ``keyword`` (BM25). Filters, all run inside LanceDB:
+        ``source`` (one name or several), ``paths`` (globs on SOURCE/PATH or PATH), ``types``
+        (suffixes such as ``pdf``), ``since`` (documents changed at or after a time or REF).
+        ``per_doc`` caps the hits from one document. With ``as_of`` (any REF) the index as it
+        was then.
         """
-        if not query.strip():
-            raise UsageError("the search query is empty")
+        text = retrieval.check_query(query)
         if k < 1:
             raise UsageError(f"-k must be at least 1, not {k}")
+        if per_doc is not None and per_doc < 1:
+            raise UsageError(f"--per-doc must be at least 1, not {per_doc}")
+        if mode not in retrieval.MODES:
+            raise UsageError(
+                f"unknown search mode {mode!r}: use one of {', '.join(retrieval.MODES)}"
+            )
         store = self.store()
         table = store.table("chunks")
         if as_of is not None:
@@ -448,29 +491,65 @@ class Index:
             history.dataset_at(store, "chunks", commit.version)  # a clear error if it is gone
             table = store.db.open_table("chunks")
             table.checkout(commit.version)
-        vector = np.asarray(self.embedder().embed([query])[0], dtype=np.float32)
-        where = f"source = {quote(source)}" if source is not None else None
-        rows = store.search(vector, k, SEARCH_COLUMNS, where=where, table=table)
-        return [
-            Hit(
-                # LanceDB's cosine distance is 1 - cosine similarity.
-                score=float(1.0 - r["_distance"]),
-                source=r["source"],
-                path=r["path"],
-                text=r["text"],
-                page=r["page_start"],
-                page_end=r["page_end"],
-                heading=r["heading"],
-                start=r["t_start"],
-                end=r["t_end"],
-                line_start=r["line_start"],
-                line_end=r["line_end"],
-                doc_id=r["doc_id"],
-                chunk_id=r["chunk_id"],
-                ordinal=r["ordinal"],
+        sources = (source,) if isinstance(source, str) else tuple(source or ())
+        filters = retrieval.Filters(
+            sources=sources,
+            paths=tuple(paths),
+            types=tuple(types),
+            doc_ids=self._changed_since(store, since) if since else None,
+        )
+        where = filters.where()
+        vector = None
+        if mode != "keyword":
+            vector = np.asarray(self.embedder().embed([text])[0], dtype=np.float32)
+        has_keyword_index = bool(retrieval.keyword_index_names_at(table))
+        if mode == "keyword" and not has_keyword_index:
+            raise UsageError(
+                "this version of the index has no keyword index (it was built before keyword "
+                "search existed): search it with --mode vector, or `upwell rebuild` it"
             )
-            for r in rows
-        ]
+        effective = mode if has_keyword_index else "vector"
+        ranked = retrieval.run_search(
+            mode=effective,
+            k=k,
+            per_doc=per_doc,
+            vector_rows=lambda n: store.search(vector, n, SEARCH_COLUMNS, where=where, table=table),
+            keyword_rows=lambda n: retrieval.keyword_rows(
+                table, text, n, KEYWORD_SEARCH_COLUMNS, where
+            ),
+        )
+        return [_hit(r) for r in ranked]
+
+    def query_notes(self, query: str) -> list[str]:
+        """What a search did to the query that a script should know (e.g. truncation)."""
+        notes = []
+        if self.exists and len(query) > 1000:
+            budget = int(self.store().settings().get("max_input_tokens") or 254)
+            used = self.embedder().tokens.count([query])[0]
+            if used > budget:
+                notes.append(
+                    f"the query has {used} tokens; the model read the first {budget} of them"
+                )
+        if len(query.split()) > retrieval.MAX_KEYWORD_TERMS:
+            notes.append(f"the keyword search used the first {retrieval.MAX_KEYWORD_TERMS} words")
+        return notes
+
+    def _changed_since(self, store: Store, since: str) -> tuple[str, ...]:
+        """Ids of documents changed at or after ``since`` (an ISO time, or a REF's time)."""
+        try:
+            when = history.parse_time(since)
+        except (ValueError, UsageError):
+            when = history.resolve(store, since).when
+        rows = store.all_documents(["doc_id", "updated_at", "content_hash"])
+        return tuple(
+            sorted(
+                r["doc_id"]
+                for r in rows
+                if r["content_hash"]
+                and r["updated_at"]
+                and history.parse_time(r["updated_at"]) >= when
+            )
+        )
 
     # --- history ------------------------------------------------------------------------------
 

@@ -33,7 +33,8 @@ from connectors.folder import FolderSource
 from pipeline import formats
 from pipeline.errors import SourceError
 from pipeline.index import Index
-from pipeline.store.schema import chunks_schema
+from pipeline.store.keyword import keyword_index_names
+from pipeline.store.schema import KEYWORD_COLUMNS, chunks_schema
 from pipeline.store.tables import Store
 
 STRUCTURAL = ("duplicate_chunk_id", "orphan_chunks", "missing_chunks", "bad_vector")
@@ -109,11 +110,34 @@ def verify_index(
                 )
             )
     _check_logs(store, docs, chunk_docs, report)
+    _check_keyword_index(store, report.counted["chunks"], report)
     if drift:
         wanted: list[Any] = list(sources) if sources is not None else sources_from_index(store)
         for source in wanted:
             _check_drift(store, source, report)
     return report
+
+
+def _check_keyword_index(store: Store, chunks: int, report: VerifyReport) -> None:
+    """The keyword index exists on every keyword column and covers every chunk (indexed, or
+    waiting unindexed, which keyword search also reads)."""
+    table = store.table("chunks")
+    names = keyword_index_names(table)
+    for column in KEYWORD_COLUMNS:
+        if column not in names:
+            report.problems.append(
+                Problem("keyword_index", f"no keyword index on chunks.{column} (a sync builds it)")
+            )
+            continue
+        stats = table.index_stats(names[column])
+        covered = int(stats.num_indexed_rows) + int(stats.num_unindexed_rows)
+        if covered != chunks:
+            report.problems.append(
+                Problem(
+                    "keyword_index",
+                    f"the keyword index on chunks.{column} covers {covered} rows of {chunks}",
+                )
+            )
 
 
 def _check_chunks(store: Store, report: VerifyReport) -> dict[str, int]:

@@ -33,6 +33,7 @@ TOY = Sizes(
     edits_per_kind=2,
     raw_embed_sample=None,
     large_build_documents=None,
+    quick_retrieval=True,
 )
 
 

@@ -205,7 +205,7 @@ def test_bucket_to_bucket_with_the_default_model(
     ix = Index(f"s3://{bucket}/ix", storage_options=s3.storage_options())
     ix.sync([src])
 
-    hits = ix.search("how long do I have to send back a part I did not use?", k=3)
+    hits = ix.search("how long do I have to send back a part I did not use?", k=3, mode="vector")
 
     assert hits[0].path == "policies/returns.md"
     # Scores are cosine similarities of the query and chunk vectors (scipy reference).

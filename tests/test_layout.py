@@ -33,7 +33,7 @@ LAYERS: list[tuple[str, ...]] = [
     ("pipeline.formats", "pipeline.chunking", "pipeline.embedding"),
     ("connectors", "pipeline.store"),
     ("pipeline.history", "pipeline.config"),
-    ("pipeline.engine", "pipeline.status"),
+    ("pipeline.engine", "pipeline.status", "pipeline.retrieval"),
     ("pipeline.index",),
     ("pipeline.verify",),
     ("pipeline.service",),

@@ -31,7 +31,7 @@ def test_indexed_search_returns_the_exact_top_k(tmp_path, hash_embedder):
     vectors = np.array([r["vector"] for r in rows], dtype=np.float64)
     ids = [r["chunk_id"] for r in rows]
     for query in ["tighten the crank bolt", "true the rear wheel", "bleed the brake hose"]:
-        hits = ix.search(query, k=10)
+        hits = ix.search(query, k=10, mode="vector")
         q = hash_embedder.embed([query])[0].astype(np.float64)
         cos = vectors @ q / (np.linalg.norm(vectors, axis=1) * np.linalg.norm(q))  # numpy reference
         exact = [ids[i] for i in np.argsort(-cos)[:10]]

@@ -78,7 +78,7 @@ def test_search_scores_are_the_cosine_similarity_numpy_computes(
     ix = make_index(tmp_path, real_embedder)
     ix.sync([small_corpus])
     query = "refund to the original card"
-    hits = ix.search(query, k=50)
+    hits = ix.search(query, k=50, mode="vector")
     # Reference: cosine similarity computed with numpy over the stored vectors.
     rows = chunk_rows(ix)
     vectors = np.array([r["vector"] for r in rows], dtype=np.float64)

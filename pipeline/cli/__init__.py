@@ -7,14 +7,15 @@ but some documents failed; 4 another writer holds the index; 6 syncing is paused
 from __future__ import annotations
 
 import argparse
-import json
+import os
 import sys
 import textwrap
 from collections.abc import Sequence
 from typing import Any
 
-from pipeline.cli import service_commands as service_cli
-from pipeline.cli.history_commands import add_history_commands
+from pipeline import retrieval
+from pipeline.cli import history_commands, service_commands
+from pipeline.cli.common import HelpFormatter, confirm_on_terminal, json_out
 from pipeline.config import CONFIG_ENV, config_path_from, load_config
 from pipeline.errors import EXIT_OK, EXIT_PARTIAL, UpwellError, UsageError
 from pipeline.index import DEFAULT_INDEX, Index, default_index_path
@@ -37,42 +38,6 @@ examples:
 The index folder is --index, else $UPWELL_INDEX, else ./{DEFAULT_INDEX}.
 Run `upwell COMMAND --help` for each command's options.
 """
-
-
-class _HelpFormatter(argparse.RawDescriptionHelpFormatter):
-    """Fills prose paragraphs to the terminal width; keeps example blocks as written."""
-
-    def _fill_text(self, text: str, width: int, indent: str) -> str:
-        paragraphs = text.split("\n\n")
-        out = []
-        for para in paragraphs:
-            lines = para.splitlines()
-            if any(line.startswith(" ") for line in lines[1:]) or para.rstrip().endswith(":"):
-                out.append(textwrap.indent(para, indent))
-            else:
-                out.append(
-                    textwrap.fill(
-                        " ".join(lines),
-                        min(width, 92),
-                        initial_indent=indent,
-                        subsequent_indent=indent,
-                    )
-                )
-        return "\n\n".join(out)
-
-
-def _json_out(data: Any) -> None:
-    json.dump(data, sys.stdout, indent=2, ensure_ascii=False, default=str)
-    sys.stdout.write("\n")
-
-
-def _confirm_on_terminal(message: str) -> bool:
-    """Ask on the terminal; without one, refuse (the caller says to use --yes)."""
-    if not sys.stdin.isatty():
-        return False
-    sys.stderr.write(message + " [y/N] ")
-    sys.stderr.flush()
-    return sys.stdin.readline().strip().lower() in ("y", "yes")
 
 
 # --- commands --------------------------------------------------------------------------------
@@ -98,10 +63,10 @@ def _sync_targets(args: argparse.Namespace, index: Index) -> list[Any]:
 
 
 def cmd_sync(args: argparse.Namespace, index: Index) -> int:
-    report = index.sync(_sync_targets(args, index), yes=args.yes, confirm=_confirm_on_terminal)
+    report = index.sync(_sync_targets(args, index), yes=args.yes, confirm=confirm_on_terminal)
     data = report.as_dict()
     if args.json:
-        _json_out(data)
+        json_out(data)
     else:
         d, c = data["documents"], data["chunks"]
         print(
@@ -127,10 +92,10 @@ def cmd_remove_source(args: argparse.Namespace, index: Index) -> int:
             f"source {args.name!r} is still in the configuration {config.file}: the next sync "
             "would add it back; remove its [[source]] first"
         )
-    report = index.remove_source(args.name, yes=args.yes, confirm=_confirm_on_terminal)
+    report = index.remove_source(args.name, yes=args.yes, confirm=confirm_on_terminal)
     data = report.as_dict()
     if args.json:
-        _json_out(data)
+        json_out(data)
     else:
         print(
             f"removed:   source {args.name!r}: {data['documents']['removed']} documents, "
@@ -141,31 +106,46 @@ def cmd_remove_source(args: argparse.Namespace, index: Index) -> int:
 
 
 def cmd_search(args: argparse.Namespace, index: Index) -> int:
-    hits = index.search(args.query, k=args.k, source=args.source, as_of=args.as_of)
+    hits = index.search(
+        args.query,
+        k=args.k,
+        source=args.source or None,
+        as_of=args.as_of,
+        mode=args.mode,
+        paths=args.path or (),
+        types=args.type or (),
+        since=args.since,
+        per_doc=args.per_doc,
+    )
     if args.json:
-        _json_out(
-            {
-                "query": args.query,
-                "results": [h.as_json() for h in hits],
-            }
-        )
+        data: dict[str, Any] = {
+            "query": args.query,
+            "mode": args.mode,
+            "results": [h.as_json() for h in hits],
+        }
+        notes = index.query_notes(args.query)
+        if notes:
+            data["notes"] = notes
+        json_out(data)
         return EXIT_OK
     if not hits:
-        print("no results: the index is empty")
+        print("no results: the index is empty" if not index.exists else "no results")
     width = 96
+    bold = sys.stdout.isatty() and not os.environ.get("NO_COLOR")
     for n, h in enumerate(hits, 1):
         print(f"{n:>2}. {h.score:.3f}  {h.citation()}")
-        snippet = " ".join(h.text.split())
-        if len(snippet) > args.snippet:
-            snippet = snippet[: args.snippet].rsplit(" ", 1)[0] + " …"
-        print(textwrap.indent(textwrap.fill(snippet, width - 6), "      "))
+        snippet = retrieval.best_snippet(h.text, args.query, args.snippet)
+        lines = textwrap.fill(snippet, width - 6)
+        if bold:
+            lines = retrieval.highlight(lines, args.query)
+        print(textwrap.indent(lines, "      "))
     return EXIT_OK
 
 
 def cmd_status(args: argparse.Namespace, index: Index) -> int:
     st = index.status()
     if args.json:
-        _json_out(st)
+        json_out(st)
         return EXIT_OK
     t = st["totals"]
     print(f"index:     {st['index']} (version {st['version']})")
@@ -213,7 +193,7 @@ def build_parser() -> argparse.ArgumentParser:
         prog="upwell",
         description=DESCRIPTION,
         epilog=EPILOG,
-        formatter_class=_HelpFormatter,
+        formatter_class=HelpFormatter,
     )
     parser.add_argument(
         "--index",
@@ -261,7 +241,7 @@ def build_parser() -> argparse.ArgumentParser:
         "  upwell --config upwell.toml sync --source handbook\n\n"
         "exit codes: 0 done, 3 committed but some documents failed (see `upwell status`), "
         "2 a confirmation was needed (--yes), 4 another writer is running",
-        formatter_class=_HelpFormatter,
+        formatter_class=HelpFormatter,
     )
     p.add_argument(
         "paths",
@@ -297,7 +277,7 @@ def build_parser() -> argparse.ArgumentParser:
         "  upwell remove-source old-handbook\n  upwell remove-source scans --yes --json\n\n"
         "exit codes: 0 removed, 2 not confirmed, unknown source or still configured, "
         "4 another writer is running",
-        formatter_class=_HelpFormatter,
+        formatter_class=HelpFormatter,
     )
     p.add_argument("name", metavar="NAME", help="the source's name, as `upwell status` shows it")
     p.add_argument("--yes", action="store_true", help="do not ask for confirmation")
@@ -306,17 +286,52 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser(
         "search",
-        help="find the chunks most similar to a query, with citations",
-        description="Embed QUERY with the index's model and return the K chunks with the highest "
-        "cosine similarity, each with its citation: file, page, heading or time range.",
+        help="find the chunks that best answer a query, with citations",
+        description="Return the K chunks that best match QUERY, each with its citation: file, "
+        "page, heading or time range. QUERY is plain text (quotes, colons, AND, * are matched "
+        "as text). Modes: hybrid (the default) fuses a vector search (the index's model, "
+        "cosine similarity) and a keyword search (BM25 over chunk text and headings) by "
+        "reciprocal rank, so both paraphrases and exact codes such as ECN-0141 are found; "
+        "vector and keyword run one of them alone. Filters run inside the index, so K hits "
+        "come back whenever K match. On a terminal the query's words are shown in bold.",
         epilog='examples:\n  upwell search "how do I return a damaged frame"\n  upwell search '
         '"spoke tension" -k 5 --json\n'
+        "  upwell search ECN-0141 --mode keyword\n"
+        '  upwell search "brake bleeding" --type vtt --type srt --per-doc 1\n'
+        '  upwell search "torque" --path "manuals/*" --since 2026-11-01\n'
         '  upwell search "brake hose routing" --as-of 2026-11-24T09:00',
-        formatter_class=_HelpFormatter,
+        formatter_class=HelpFormatter,
     )
     p.add_argument("query", metavar="QUERY")
     p.add_argument("-k", type=int, default=5, help="number of results (default 5)")
-    p.add_argument("--source", default=None, help="only search this source")
+    p.add_argument(
+        "--mode",
+        choices=retrieval.MODES,
+        default=retrieval.DEFAULT_MODE,
+        help="hybrid (default): vector and keyword fused; vector: meaning only; keyword: BM25",
+    )
+    p.add_argument(
+        "--source", action="append", metavar="NAME", help="only this source (repeatable)"
+    )
+    p.add_argument(
+        "--path",
+        action="append",
+        metavar="GLOB",
+        help="only documents whose PATH or SOURCE/PATH matches GLOB (* and ? as in a shell; "
+        "* also matches /); repeatable",
+    )
+    p.add_argument(
+        "--type",
+        action="append",
+        metavar="SUFFIX",
+        help="only documents of this format: pdf, docx, md, txt, vtt, srt, html (repeatable)",
+    )
+    p.add_argument(
+        "--since",
+        metavar="TIME_OR_REF",
+        help="only documents changed at or after this ISO-8601 time or REF's commit",
+    )
+    p.add_argument("--per-doc", type=int, metavar="N", help="at most N hits from one document")
     p.add_argument(
         "--as-of",
         metavar="REF",
@@ -335,13 +350,13 @@ def build_parser() -> argparse.ArgumentParser:
         "its reason (its last good version stays searchable), extraction warnings, the model "
         "and the last commit. Needs no lock: safe while a sync runs.",
         epilog="example:\n  upwell status --json",
-        formatter_class=_HelpFormatter,
+        formatter_class=HelpFormatter,
     )
     p.add_argument("--json", action="store_true", help="print status as JSON")
     p.set_defaults(func=cmd_status)
 
-    add_history_commands(sub, _HelpFormatter, _confirm_on_terminal)
-    service_cli.register(sub, _HelpFormatter)
+    history_commands.register(sub)
+    service_commands.register(sub)
     return parser
 
 

@@ -4,21 +4,15 @@ rebuild, erase and maintain. Each parses, calls one ``Index`` method, prints."""
 from __future__ import annotations
 
 import argparse
-import json
-import sys
 from typing import Any
 
+from pipeline.cli.common import HelpFormatter, confirm_on_terminal, json_out
 from pipeline.index import Index
 
 REF_HELP = (
     "a commit id (or a prefix of 4+ characters), a version number (12 or v12), a tag, or an "
     "ISO-8601 time meaning the last commit at or before it (UTC when no zone is given)"
 )
-
-
-def _json_out(data: Any) -> None:
-    json.dump(data, sys.stdout, indent=2, ensure_ascii=False, default=str)
-    sys.stdout.write("\n")
 
 
 def _counts(c: dict[str, Any]) -> str:
@@ -33,7 +27,7 @@ def cmd_history(args: argparse.Namespace, index: Index) -> int:
     for name, commit in index.tags().items():
         tags_by_commit.setdefault(commit.id, []).append(name)
     if args.json:
-        _json_out({"commits": [dict(c.as_dict(), tags=tags_by_commit.get(c.id, [])) for c in log]})
+        json_out({"commits": [dict(c.as_dict(), tags=tags_by_commit.get(c.id, [])) for c in log]})
         return 0
     if not log:
         print("no commits yet")
@@ -51,7 +45,7 @@ def cmd_diff(args: argparse.Namespace, index: Index) -> int:
     d = index.diff(args.ref, args.ref2)
     data = d.as_dict()
     if args.json:
-        _json_out(data)
+        json_out(data)
         return 0
     base = f"{d.base.id} (v{d.base.version})" if d.base else "the empty index"
     print(f"from {base} to {d.head.id} (v{d.head.version})")
@@ -73,7 +67,7 @@ def cmd_diff(args: argparse.Namespace, index: Index) -> int:
 def cmd_tag(args: argparse.Namespace, index: Index) -> int:
     commit = index.tag(args.name, args.ref)
     if args.json:
-        _json_out({"tag": args.name, "commit": commit.as_dict()})
+        json_out({"tag": args.name, "commit": commit.as_dict()})
     else:
         print(f"tagged {commit.id} (version {commit.version}, {commit.time}) as {args.name}")
     return 0
@@ -82,7 +76,7 @@ def cmd_tag(args: argparse.Namespace, index: Index) -> int:
 def cmd_tags(args: argparse.Namespace, index: Index) -> int:
     tags = index.tags()
     if args.json:
-        _json_out({"tags": {name: c.as_dict() for name, c in tags.items()}})
+        json_out({"tags": {name: c.as_dict() for name, c in tags.items()}})
         return 0
     if not tags:
         print("no tags")
@@ -101,7 +95,7 @@ def cmd_rollback(args: argparse.Namespace, index: Index, confirm: Any) -> int:
     if args.dry_run:
         plan = index.plan_rollback(args.ref)
         if args.json:
-            _json_out(plan.as_dict())
+            json_out(plan.as_dict())
         else:
             print(plan.describe())
         return 0
@@ -114,7 +108,7 @@ def cmd_rollback(args: argparse.Namespace, index: Index, confirm: Any) -> int:
         confirm=(lambda message: confirm("Roll back?")) if not args.json else confirm,
     )
     if args.json:
-        _json_out({"commit": commit.as_dict(), "paused": args.pause})
+        json_out({"commit": commit.as_dict(), "paused": args.pause})
     else:
         summary = _counts(commit.as_dict())
         print(f"rolled back: commit {commit.id} (version {commit.version}): {summary}")
@@ -132,7 +126,7 @@ def cmd_resume(args: argparse.Namespace, index: Index) -> int:
 def cmd_erase(args: argparse.Namespace, index: Index, confirm: Any) -> int:
     result = index.erase(args.patterns, yes=args.yes, confirm=confirm)
     if args.json:
-        _json_out(result)
+        json_out(result)
     else:
         print(
             f"erased {result['documents']} documents ({result['chunks_deleted']} chunks, "
@@ -149,7 +143,7 @@ def cmd_maintain(args: argparse.Namespace, index: Index, confirm: Any) -> int:
         print(plan.describe())
     result = index.maintain(keep_days=args.keep_days, yes=args.yes, confirm=confirm)
     if args.json:
-        _json_out(result)
+        json_out(result)
         return 0
     for name, t in result["tables"].items():
         print(
@@ -178,7 +172,7 @@ def rebuild_command(args: argparse.Namespace, index: Index) -> int:
     )
     data = report.as_dict()
     if args.json:
-        _json_out(data)
+        json_out(data)
     else:
         c = data["chunks"]
         print(
@@ -188,8 +182,10 @@ def rebuild_command(args: argparse.Namespace, index: Index) -> int:
     return 0
 
 
-def add_history_commands(sub: Any, formatter: type[argparse.HelpFormatter], confirm: Any) -> None:
-    """Register the history commands on the main parser's subparsers."""
+def register(sub: Any) -> None:
+    """Add the history commands to the ``upwell`` subcommand parser."""
+    formatter = HelpFormatter
+    confirm = confirm_on_terminal
 
     def add(name: str, help_: str, description: str, epilog: str) -> argparse.ArgumentParser:
         return sub.add_parser(

@@ -7,11 +7,10 @@ and ``args.config`` holds the loaded ``Config`` (or None).
 from __future__ import annotations
 
 import argparse
-import json
-import sys
 from pathlib import Path
 from typing import Any
 
+from pipeline.cli.common import HelpFormatter, json_out
 from pipeline.config import STARTER_TEXT, Config
 from pipeline.errors import EXIT_INCONSISTENT, EXIT_OK, UsageError
 from pipeline.index import Index
@@ -55,8 +54,7 @@ def cmd_verify(args: argparse.Namespace, index: Index) -> int:
     else:
         report = verify_index(index, sources, drift=not args.no_drift)
     if args.json:
-        json.dump(report.as_dict(), sys.stdout, indent=2, ensure_ascii=False)
-        sys.stdout.write("\n")
+        json_out(report.as_dict())
     else:
         c = report.counted
         print(
@@ -72,7 +70,8 @@ def cmd_verify(args: argparse.Namespace, index: Index) -> int:
     return EXIT_OK if report.consistent else EXIT_INCONSISTENT
 
 
-def register(sub: Any, formatter_class: Any = argparse.HelpFormatter) -> None:
+def register(sub: Any) -> None:
+    formatter_class = HelpFormatter
     """Add ``init``, ``watch`` and ``verify`` to the ``upwell`` subcommand parser."""
     p = sub.add_parser(
         "init",

@@ -9,6 +9,8 @@ from collections import Counter
 from typing import Any
 
 from pipeline.engine.reports import OUTCOMES, CommitResult, Counts
+from pipeline.history.erase import complete_pending_erase
+from pipeline.history.rollback import complete_pending
 from pipeline.store.ids import erased_token, new_commit_id, utc_now
 from pipeline.store.schema import MAINTAINED_VERSIONS, chunks_schema, commit_row
 from pipeline.store.tables import Store
@@ -90,3 +92,15 @@ def recover_interrupted_batch(store: Store, trigger: str) -> CommitResult | None
         )
     )
     return CommitResult(commit_id, version or versions["chunks"], counts)
+
+
+def recover_for_writing(store: Store, trigger: str | None) -> None:
+    """The one thing every writer does first, holding the lock: finish a rollback and an
+    erasure that a crash interrupted (each is resumable), then, unless ``trigger`` is None (a
+    sync does it itself, to report it), clean up what a writer killed mid-batch left, in a
+    commit whose trigger is ``recover:TRIGGER``."""
+    store.refresh()
+    complete_pending(store)
+    complete_pending_erase(store)
+    if trigger is not None:
+        recover_interrupted_batch(store, trigger)

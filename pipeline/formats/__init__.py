@@ -8,6 +8,8 @@ success always carries at least one segment.
 
 from __future__ import annotations
 
+from collections.abc import Callable
+from dataclasses import dataclass
 from pathlib import PurePath
 
 from pipeline.errors import (
@@ -29,24 +31,64 @@ from pipeline.formats.text import (
 from pipeline.formats.transcripts import SRT_TYPE, WEBVTT_TYPE, extract_srt, extract_webvtt
 from pipeline.records import Extracted, Limits
 
-__all__ = ["EXTRACTOR_VERSION", "SUPPORTED_SUFFIXES", "extract", "media_type_for"]
+__all__ = [
+    "EXTRACTOR_VERSION",
+    "FORMATS",
+    "SUPPORTED_SUFFIXES",
+    "Format",
+    "extract",
+    "media_type_for",
+]
 
 # Bump whenever any extractor's output changes for the same input bytes: the engine compares it
 # with the version stored beside a document's segments and re-extracts when they differ.
 EXTRACTOR_VERSION = "5"  # 5: .docx footnotes and endnotes
 
-_MEDIA_TYPES: dict[str, str] = {
-    ".pdf": PDF_TYPE,
-    ".docx": DOCX_TYPE,
-    ".txt": PLAIN_TEXT_TYPE,
-    ".text": PLAIN_TEXT_TYPE,
-    ".md": MARKDOWN_TYPE,
-    ".markdown": MARKDOWN_TYPE,
-    ".vtt": WEBVTT_TYPE,
-    ".srt": SRT_TYPE,
-    ".html": HTML_TYPE,
-    ".htm": HTML_TYPE,
-}
+
+@dataclass(frozen=True)
+class Format:
+    """One format upwell reads: its media type, the suffixes that name it, the check that the
+    bytes are plausibly that format (a clear error instead of a parser's), and its extractor."""
+
+    media_type: str
+    suffixes: tuple[str, ...]
+    extract: Callable[[bytes, Limits], Extracted]
+    check: Callable[[bytes], None] | None = None
+
+
+def _check_pdf(data: bytes) -> None:
+    if find_pdf_header(data) < 0:
+        raise CorruptDocument(
+            f"not a PDF (no %PDF- header); it looks like {describe_content(data)}"
+        )
+
+
+def _check_docx(data: bytes) -> None:
+    if not data.startswith(b"PK"):
+        raise CorruptDocument(
+            f"not a Word .docx (which is a zip archive); it looks like {describe_content(data)}"
+        )
+
+
+def _check_html(data: bytes) -> None:
+    # Any text may be a page (the parser wraps bare text), but not a known binary format.
+    described = describe_content(data)
+    if any(described == description for _, description in _SIGNATURES):
+        raise CorruptDocument(f"not an HTML page; it looks like {described}")
+
+
+#: The one table of formats: adding a format is one row here and one extractor module.
+FORMATS: tuple[Format, ...] = (
+    Format(PDF_TYPE, (".pdf",), lambda data, limits: extract_pdf(data), _check_pdf),
+    Format(DOCX_TYPE, (".docx",), extract_docx, _check_docx),
+    Format(PLAIN_TEXT_TYPE, (".txt", ".text"), lambda data, limits: extract_plain_text(data)),
+    Format(MARKDOWN_TYPE, (".md", ".markdown"), lambda data, limits: extract_markdown(data)),
+    Format(WEBVTT_TYPE, (".vtt",), lambda data, limits: extract_webvtt(data)),
+    Format(SRT_TYPE, (".srt",), lambda data, limits: extract_srt(data)),
+    Format(HTML_TYPE, (".html", ".htm"), lambda data, limits: extract_html(data), _check_html),
+)
+_BY_SUFFIX: dict[str, Format] = {s: f for f in FORMATS for s in f.suffixes}
+_MEDIA_TYPES: dict[str, str] = {s: f.media_type for s, f in _BY_SUFFIX.items()}
 
 SUPPORTED_SUFFIXES: frozenset[str] = frozenset(_MEDIA_TYPES)
 
@@ -111,28 +153,13 @@ def extract(name: str, data: bytes, limits: Limits | None = None) -> Extracted:
     if not strip_boms_and_blanks(data):
         raise EmptyDocument("empty file" if not data else "file holds only whitespace")
 
-    if media_type == PDF_TYPE:
-        if find_pdf_header(data) < 0:
-            raise CorruptDocument(
-                f"not a PDF (no %PDF- header); it looks like {describe_content(data)}"
-            )
-        return extract_pdf(data)
-    if media_type == DOCX_TYPE:
-        if not data.startswith(b"PK"):
-            raise CorruptDocument(
-                f"not a Word .docx (which is a zip archive); it looks like {describe_content(data)}"
-            )
-        return extract_docx(data, limits)
-    if media_type == HTML_TYPE:
-        # Any text may be a page (the parser wraps bare text), but not a known binary format.
-        described = describe_content(data)
-        if any(described == description for _, description in _SIGNATURES):
-            raise CorruptDocument(f"not an HTML page; it looks like {described}")
-        return extract_html(data)
-    if media_type == WEBVTT_TYPE:
-        return extract_webvtt(data)
-    if media_type == SRT_TYPE:
-        return extract_srt(data)
-    if media_type == MARKDOWN_TYPE:
-        return extract_markdown(data)
-    return extract_plain_text(data)
+    fmt = _BY_SUFFIX[_suffix(name)]
+    if fmt.check is not None:
+        fmt.check(data)
+    return fmt.extract(data, limits)
+
+
+def _suffix(name: str) -> str:
+    base = name.rpartition("/")[2]
+    dot = base.rfind(".")
+    return base[dot:].lower() if dot > 0 else ""

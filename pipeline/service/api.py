@@ -17,6 +17,7 @@ from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
 from typing import Any, Protocol
 from urllib.parse import parse_qs, urlsplit
 
+from pipeline import retrieval
 from pipeline.config import ServerConfig
 from pipeline.errors import IndexMissing, UpwellError, UsageError
 from pipeline.index import Hit, Index
@@ -60,10 +61,10 @@ class _Reader:
             self.index.store().refresh()
             return self.index.status()
 
-    def search(self, query: str, k: int, source: str | None) -> list[Hit]:
+    def search(self, query: str, k: int, **options: Any) -> list[Hit]:
         with self._lock:
             self.index.store().refresh()
-            return self.index.search(query, k=k, source=source)
+            return self.index.search(query, k=k, **options)
 
 
 class ApiServer(ThreadingHTTPServer):
@@ -149,9 +150,24 @@ class _Handler(BaseHTTPRequestHandler):
             raise UsageError("k must be a whole number") from None
         if k > MAX_K:
             raise UsageError(f"k must be at most {MAX_K}")
-        source = query["source"][0] if query.get("source") else None
-        hits = self.server.reader.search(q, k, source)
-        self._send_json(200, {"query": q, "results": [hit_json(h) for h in hits]})
+        per_doc = None
+        if query.get("per_doc"):
+            try:
+                per_doc = int(query["per_doc"][0])
+            except ValueError:
+                raise UsageError("per_doc must be a whole number") from None
+        mode = (query.get("mode") or [retrieval.DEFAULT_MODE])[0]
+        hits = self.server.reader.search(
+            q,
+            k,
+            mode=mode,
+            source=query.get("source") or None,
+            paths=query.get("path") or (),
+            types=query.get("type") or (),
+            since=(query.get("since") or [None])[0],
+            per_doc=per_doc,
+        )
+        self._send_json(200, {"query": q, "mode": mode, "results": [hit_json(h) for h in hits]})
 
     def _metrics(self, query: dict[str, list[str]]) -> None:
         self._send(200, self.server.service.metrics.render(), CONTENT_TYPE)

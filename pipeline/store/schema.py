@@ -27,6 +27,10 @@ def commit_order(row: dict[str, Any]) -> tuple[int, int, str]:
     return (int(row["documents_version"]), int(row["chunks_version"]), row["time"])
 
 
+#: The chunk columns the full-text (keyword) index covers.
+KEYWORD_COLUMNS = ("text", "heading")
+
+
 def chunks_schema(dimension: int) -> pa.Schema:
     return pa.schema(
         [

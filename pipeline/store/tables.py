@@ -32,6 +32,7 @@ import pyarrow.compute as pc
 from pipeline.errors import IndexMissing, ModelMismatch, StoreError
 from pipeline.locations import is_remote
 from pipeline.store.ids import IN_BATCH, batched, in_filter, quote
+from pipeline.store.keyword import create_keyword_index
 from pipeline.store.schema import (
     COMMITS_SCHEMA,
     DOCUMENT_SUMMARY_COLUMNS,
@@ -159,6 +160,9 @@ class Store:
             # new key both land.
             table.set_unenforced_primary_key(key)
             tables[name] = table
+        # The keyword index exists from the first version on, so every version can be
+        # searched by keyword (rows added later are searched unindexed until maintenance).
+        create_keyword_index(tables["chunks"])
         # Settings last: its presence is what marks the folder as a complete index.
         settings_table = db.create_table("settings", schema=SETTINGS_SCHEMA, exist_ok=True)
         settings_table.add(

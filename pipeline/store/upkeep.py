@@ -21,6 +21,7 @@ from datetime import timedelta
 from typing import Any
 
 from pipeline.errors import StoreError, first_line
+from pipeline.store.keyword import create_keyword_index, keyword_index_names
 from pipeline.store.schema import MAINTAINED_VERSIONS, TABLES
 from pipeline.store.tables import Store
 
@@ -143,6 +144,7 @@ def ensure_indexes(
     settings so the next sync does not take it for an interrupted batch.
     """
     created = ensure_scalar_indexes(store, scalar_min_rows)
+    created += ensure_keyword_index(store)
     chunks = store.table("chunks")
     if not _has_vector_index(chunks) and chunks.count_rows() >= vector_min_rows:
         rows = chunks.count_rows()
@@ -160,6 +162,31 @@ def ensure_indexes(
         chunks.checkout_latest()
         store.update_setting(MAINTAINED_VERSIONS["chunks"], int(chunks.version))
     return created
+
+
+#: The full-text index is optimised (unindexed rows folded in) once a sync leaves this many
+#: rows unindexed; until then they are searched unindexed, which costs a little per query.
+KEYWORD_FOLD_ROWS = 2_000
+
+
+def ensure_keyword_index(store: Store, fold_rows: int = KEYWORD_FOLD_ROWS) -> list[str]:
+    """Build the keyword index if the index has none (one made before keyword search), and fold
+    unindexed rows into it once there are ``fold_rows`` of them. Records the chunks version it
+    leaves, like every maintenance step, so it is not taken for an interrupted batch."""
+    chunks = store.table("chunks")
+    done = create_keyword_index(chunks)
+    if not done:
+        names = keyword_index_names(chunks)
+        unindexed = max(
+            (chunks.index_stats(n).num_unindexed_rows for n in names.values()), default=0
+        )
+        if unindexed >= fold_rows:
+            chunks.to_lance().optimize.optimize_indices(index_names=list(names.values()))
+            done.append("chunks keyword index optimised")
+    if done:
+        chunks.checkout_latest()
+        store.update_setting(MAINTAINED_VERSIONS["chunks"], int(chunks.version))
+    return done
 
 
 def _has_vector_index(table: Any) -> bool:
