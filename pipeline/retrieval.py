@@ -253,7 +253,10 @@ def best_snippet(text: str, query: str, width: int) -> str:
         if hits > best_hits:
             best, best_hits = i, hits
     start = len(" ".join(sentences[:best])) + (1 if best else 0)
-    start = max(0, min(start, len(flat) - width))
+    if len(flat) - start < width:  # near the end: show the whole tail, from a word's start
+        start = max(0, len(flat) - width)
+        if start:
+            start = flat.find(" ", start) + 1
     piece = flat[start : start + width]
     if start + width < len(flat):
         piece = piece.rsplit(" ", 1)[0] + " …"
