@@ -29,7 +29,7 @@ from pipeline.service.api import start_http_server
 from pipeline.service.metrics import ServiceMetrics
 from tests.conftest import write
 
-# --- reciprocal rank fusion against the paper ---------------------------------------------------
+# --- reciprocal rank fusion against the paper ---
 
 
 def test_rrf_matches_the_papers_formula_on_hand_made_lists():
@@ -52,7 +52,7 @@ def test_rrf_matches_the_papers_formula_on_hand_made_lists():
     assert order[:2] == ["a", "c"]  # in both lists, near the top
 
 
-# --- nDCG against its textbook definition -------------------------------------------------------
+# --- nDCG against its textbook definition ---
 
 
 def test_dcg_and_ndcg_on_the_worked_example():
@@ -74,7 +74,7 @@ def test_dcg_and_ndcg_on_the_worked_example():
     assert 0 < quality.ndcg([1, 0, 0]) < 1
 
 
-# --- keyword ranking against a reference BM25 -----------------------------------------------------
+# --- keyword ranking against a reference BM25 ---
 
 BM25_CORPUS = [
     "the rear brake caliper is bled with mineral oil after the hose is cut",
@@ -135,7 +135,7 @@ def test_keyword_ranking_agrees_with_a_reference_bm25(tmp_path):
         assert ours[0] == theirs[0], (query, ours, theirs)
 
 
-# --- the modes on a real index --------------------------------------------------------------------
+# --- the modes on a real index ---
 
 
 @pytest.fixture(scope="module")
@@ -294,7 +294,7 @@ def test_an_unknown_type_names_the_known_ones(index):
         index.search("seat", types=["xlsx"])
 
 
-# --- new commits are searchable by keyword at once; as-of; erase -----------------------------------
+# --- new commits are searchable by keyword at once; as-of; erase ---
 
 
 def test_a_new_commit_is_searchable_by_keyword_at_once_and_as_of_keeps_the_old(
@@ -332,7 +332,7 @@ def test_erase_purges_the_words_from_every_file_under_the_index(tmp_path, real_e
     assert ix.search("seat clamp", k=1, mode="keyword")[0].path == "keep.md"
 
 
-# --- the CLI and the HTTP API -----------------------------------------------------------------------
+# --- the CLI and the HTTP API ---
 
 
 def test_cli_modes_filters_and_json_keys(index, capsys):
@@ -390,3 +390,34 @@ def test_http_search_takes_the_mode_and_filters(index):
     finally:
         server.shutdown()
         server.server_close()
+
+
+def test_verify_reports_a_missing_keyword_index(tmp_path, hash_embedder):
+    from pipeline.verify import verify_index
+
+    root = tmp_path / "share"
+    write(root / "a.md", "# Parts\n\nThe hub spacer is part MCW-HUB-SP-12.\n")
+    ix = Index(tmp_path / "ix", model="hash", embedder=hash_embedder)
+    ix.sync([root])
+    assert not [p for p in verify_index(ix, drift=False).problems if p.check == "keyword_index"]
+    chunks = ix.store().table("chunks")
+    chunks.drop_index("text_idx")
+    problems = [p for p in verify_index(ix, drift=False).problems if p.check == "keyword_index"]
+    assert problems and "chunks.text" in problems[0].detail
+    # The next sync builds it again, and keyword search works as before.
+    write(root / "b.md", "# More\n\nA second part, MCW-HUB-SP-14.\n")
+    ix.sync([root])
+    assert not [p for p in verify_index(ix, drift=False).problems if p.check == "keyword_index"]
+    assert ix.search("MCW-HUB-SP-14", k=1, mode="keyword")[0].path == "b.md"
+
+
+def test_the_snippet_is_taken_around_the_best_matching_sentence():
+    from pipeline.retrieval import best_snippet, highlight
+
+    text = " ".join(f"Filler sentence number {i} about nothing much." for i in range(30))
+    text += " The HB2 caliper takes mineral oil only. " + text
+    snippet = best_snippet(text, "which oil for the HB2 caliper", 120)
+    assert snippet.startswith("… The HB2 caliper takes mineral oil only.")
+    assert len(snippet) <= 130
+    marked = highlight("Mineral oil only, never brake fluid.", "mineral OIL", "[", "]")
+    assert marked == "[Mineral] [oil] only, never brake fluid."
