@@ -24,7 +24,8 @@ def test_pdf_text_matches_pdfminer_reading(tmp_path):
     path = _write(tmp_path, "manual.pdf", make_pdf(SERVICE_MANUAL))
     ours = " ".join(segment.text for segment in extract(path.name, path.read_bytes()).segments)
     # Reference: pdfminer.six, an independent PDF text extractor. Measure: difflib
-    # SequenceMatcher ratio over word lists after NFKC + casefold; 0.95 is our bar (common practice for text-layer agreement).
+    # SequenceMatcher ratio over word lists after NFKC + casefold; 0.95 is our bar (common
+    # practice for text-layer agreement).
     reference = pdfminer_extract_text(str(path))
     assert len(comparable_words(ours)) > 100
     assert word_similarity(ours, reference) >= 0.95

@@ -37,7 +37,8 @@ from tests.conftest import REPO, paragraph, write
 
 PY = sys.executable
 START_DEADLINE = 90.0  # the default model and lancedb load on a busy 2-core machine
-CHANGE_DEADLINE = 30.0  # the README's save-to-searchable figure is measured in bench/, never asserted here
+# The README's save-to-searchable figure is measured in bench/, never asserted here.
+CHANGE_DEADLINE = 30.0
 
 
 # --- helpers ---------------------------------------------------------------------------------

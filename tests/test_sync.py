@@ -1,6 +1,7 @@
 """The sync engine end to end: real LanceDB, real files, the real model where vectors matter.
 
-Each test states one invariant of DEVELOPERS.md ("Invariants") and builds its own corpus in tmp_path.
+Each test states one invariant of DEVELOPERS.md ("Invariants") and builds its own corpus in
+tmp_path.
 """
 
 from __future__ import annotations
