@@ -2,9 +2,9 @@
 
 Listing fetches every page, asking "changed since?" with the validators of the fingerprint the
 index stored for it (``If-None-Match`` with its ETag, ``If-Modified-Since`` with its
-Last-Modified date; RFC 9110 section 13). A 304 lists the stored fingerprint unchanged, so the
-engine never reads the page; a 200 keeps the body (in ``state_dir``, not in memory) for ``read``
-and fingerprints it by its ETag, else by the SHA-256 of the body.
+Last-Modified date; RFC 9110 section 13 [from memory]). A 304 lists the stored fingerprint
+unchanged, so the engine never reads the page; a 200 keeps the body (in ``state_dir``, not in
+memory) for ``read`` and fingerprints it by its ETag, else by the SHA-256 of the body.
 
 Nothing is removed on one bad answer. A 404 or 410 keeps the document until it has missed
 ``misses_before_removal`` listings in a row (counted in ``state_dir``); then it is left out and
@@ -65,7 +65,8 @@ SITEMAP_MAX_BYTES = 50 * 1024 * 1024
 SITEMAP_MAX_URLS = 50_000
 SITEMAP_NAMESPACE = "{http://www.sitemaps.org/schemas/sitemap/0.9}"
 
-# Answers worth asking again: the server is busy or failing now (RFC 9110 section 15.6;
+# Answers worth asking again: the server is busy or failing now (RFC 9110 section 15.6 [from
+# memory];
 # 429 from RFC 6585).
 _RETRY_STATUSES = frozenset({429, 500, 502, 503, 504})
 _GONE_STATUSES = frozenset({404, 410})
@@ -119,7 +120,8 @@ def without_fragment(url: str) -> str:
 
 
 def conditional_headers(fp: Fingerprint | None) -> dict[str, str]:
-    """Validators for a conditional GET from a stored fingerprint (RFC 9110 13.1.2, 13.1.3)."""
+    """Validators for a conditional GET from a stored fingerprint (RFC 9110 13.1.2 and
+    13.1.3 [from memory])."""
     headers: dict[str, str] = {}
     if fp is None:
         return headers

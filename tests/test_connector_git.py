@@ -322,7 +322,8 @@ def refusing_server():
 def test_refused_credentials_are_a_permission_error_and_a_server_error_unreachable(
     tmp_path, refusing_server
 ):
-    # 401 and 403 are refusals (RFC 9110 sections 15.5.2 and 15.5.4); git asks for no password.
+    # 401 and 403 are refusals (RFC 9110 sections 15.5.2 and 15.5.4 [from memory]); git asks for no
+    # password.
     for status in (401, 403):
         source = git_source(tmp_path / str(status), f"{refusing_server}/{status}/workshop.git")
         with pytest.raises(SourcePermission):

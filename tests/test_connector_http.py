@@ -1,8 +1,9 @@
 """The http connector against a real web server on 127.0.0.1 that the tests run in a thread.
 
 The server (``Site``) serves invented Marrowby Cycle Works pages with ETag and Last-Modified
-and answers conditional GETs as RFC 9110 section 13 says; a test can make pages answer 404,
-503 or slowly, or stop the server (connection refused). It counts every request it receives.
+and answers conditional GETs as RFC 9110 section 13 [from memory] says; a test can make pages
+answer 404, 503 or slowly, or stop the server (connection refused). It counts every request it
+receives.
 """
 
 from __future__ import annotations
@@ -103,14 +104,14 @@ class Site:
                 elif body is None:
                     status = 404
                 elif site.etags and self.headers.get("If-None-Match"):
-                    # RFC 9110 13.1.2: weak comparison of the listed entity tags.
+                    # RFC 9110 13.1.2 [from memory]: weak comparison of the listed entity tags.
                     tags = [
                         t.strip().removeprefix("W/")
                         for t in self.headers["If-None-Match"].split(",")
                     ]
                     status = 304 if etag in tags or "*" in tags else 200
                 elif self.headers.get("If-Modified-Since"):
-                    # RFC 9110 13.1.3: 304 when not modified since the given date.
+                    # RFC 9110 13.1.3 [from memory]: 304 when not modified since the given date.
                     since = email.utils.parsedate_to_datetime(self.headers["If-Modified-Since"])
                     status = 304 if LAST_MODIFIED <= since.timestamp() else 200
                 else:

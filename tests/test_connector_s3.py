@@ -115,7 +115,8 @@ def test_listing_pages_through_every_key(s3: LocalS3, bucket: str) -> None:
 
     listed = [i.key for i in src.list_items()]
 
-    assert listed == keys  # ListObjectsV2 returns keys in UTF-8 binary order (S3 API reference)
+    # ListObjectsV2 returns keys in UTF-8 binary order (S3 API reference, from memory)
+    assert listed == keys
     assert sent == Counter({"ListObjectsV2": 3})  # 10 + 10 + 3 keys
 
 

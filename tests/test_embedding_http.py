@@ -193,7 +193,8 @@ def test_an_unreachable_server_is_retried_then_reported():
 
 
 def test_parse_retry_after_reads_seconds_and_http_dates():
-    # RFC 9110 section 10.2.3: delay-seconds or an HTTP-date (IMF-fixdate, RFC 9110 5.6.7).
+    # RFC 9110 section 10.2.3 [from memory]: delay-seconds or an HTTP-date (IMF-fixdate, RFC 9110
+    # 5.6.7 [from memory]).
     assert parse_retry_after("120") == 120.0
     now = 946684799.0 - 30  # 30 s before 1999-12-31T23:59:59Z (that date's Unix time)
     assert parse_retry_after("Fri, 31 Dec 1999 23:59:59 GMT", now=now) == pytest.approx(30.0)

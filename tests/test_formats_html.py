@@ -228,7 +228,7 @@ def test_service_page_matches_the_reference_reading_and_the_expected_segments():
 
 
 def test_markup_browsers_repair_gives_the_same_blocks():
-    # Implied end tags (HTML Living Standard 13.1.2.4: p, li, td, tr may omit them).
+    # Implied end tags (HTML Living Standard 13.1.2.4 [from memory]: p, li, td, tr may omit them).
     sloppy = (
         "<title>Returns</title><h2>Returns policy<p>Return a frame within 30 days."
         "<p>Keep the box.<ul><li>Frames<li>Wheels</ul><table><tr><td>Item<td>Days"

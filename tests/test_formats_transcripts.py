@@ -108,7 +108,8 @@ def test_webvtt_tags_are_stripped_and_entities_decoded():
         "Torque &lt;5 Nm&gt;&nbsp;max&lrm;, <00:02.500>then <ruby>stop<rt>halt</rt></ruby>.\n"
     )
     segments = extract("grease.vtt", text.encode()).segments
-    # Expected per W3C WebVTT 6.4 (cue text tokenizer): tags are not text, "&..." are HTML
+    # Expected per W3C WebVTT 6.4 [from memory] (cue text tokenizer): tags are not text, "&..." are
+    # HTML
     # character references; the voice annotation is the speaker's name.
     assert [s.text for s in segments] == [
         "Esme Tarrant: Use the blue grease here & there",
@@ -117,7 +118,8 @@ def test_webvtt_tags_are_stripped_and_entities_decoded():
 
 
 def test_hours_less_timings_are_minutes_and_seconds_per_the_spec():
-    # W3C WebVTT 6.2: with two fields, "mm:ss.ttt" (hours are zero). SRT players read the
+    # W3C WebVTT 6.2 [from memory]: with two fields, "mm:ss.ttt" (hours are zero). SRT players read
+    # the
     # hours-less "MM:SS,mmm" form the same way.
     vtt = extract("short.vtt", b"WEBVTT\n\n00:05.000 --> 01:02.250\nPump the tyres.\n")
     assert (vtt.segments[0].anchor.start, vtt.segments[0].anchor.end) == (5.0, 62.25)
@@ -138,7 +140,7 @@ def test_webvtt_timestamps_the_spec_rejects_discard_their_cue():
 
 
 def test_webvtt_cue_identifier_and_a_missing_blank_line_between_cues():
-    # W3C WebVTT 6.1: a line holding "-->" after the cue text starts the next cue.
+    # W3C WebVTT 6.1 [from memory]: a line holding "-->" after the cue text starts the next cue.
     text = "WEBVTT\n\nfirst\n00:01.000 --> 00:02.000\nOne.\n00:02.000 --> 00:03.000\nTwo.\n"
     segments = extract("tight.vtt", text.encode()).segments
     assert [(s.text, s.anchor.start) for s in segments] == [("One.", 1.0), ("Two.", 2.0)]

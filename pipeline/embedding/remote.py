@@ -144,7 +144,7 @@ def parse_spec(body: str) -> tuple[str, str, str | None, dict[str, Any]]:
 def parse_retry_after(value: str | None, now: float | None = None) -> float | None:
     """Seconds to wait from a ``Retry-After`` value: delay-seconds or an HTTP-date.
 
-    RFC 9110 section 10.2.3 allows both forms; an unparseable value is ignored (None).
+    RFC 9110 section 10.2.3 [from memory] allows both forms; an unparseable value is ignored (None).
     """
     if value is None:
         return None

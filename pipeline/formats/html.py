@@ -48,7 +48,7 @@ BLOCK_TAGS = frozenset(
 )  # fmt: skip
 CELL_TAGS = frozenset({"td", "th"})
 
-# The encoding prescan looks at the first 1024 bytes (HTML Living Standard 13.2.3.2).
+# The encoding prescan looks at the first 1024 bytes (HTML Living Standard 13.2.3.2 [from memory]).
 _PRESCAN_BYTES = 1024
 _META_CHARSET = re.compile(
     rb"""<meta\s[^>]*?charset\s*=\s*["']?\s*([A-Za-z0-9._:-]+)""", re.IGNORECASE
