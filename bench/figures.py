@@ -601,9 +601,9 @@ def search(bench: Bench) -> Figure:
     queries /= np.linalg.norm(queries, axis=1, keepdims=True)
 
     # Exact scan first (what a small index does), then with the indexes a sync builds past its
-    # size thresholds (pipeline/maintenance.py: ensure_indexes).
+    # size thresholds (pipeline/store/upkeep.py: ensure_indexes).
     def engine_query(q: np.ndarray, where: str | None = None) -> list[str]:
-        # The query Index.search runs (pipeline/store.py: Store.search), minus embedding.
+        # The query Index.search runs (pipeline/store/tables.py: Store.search), minus embedding.
         return [r["chunk_id"] for r in store.search(q, k, SEARCH_COLUMNS, where=where)]
 
     flat_times = []

@@ -1,5 +1,5 @@
 """Sources upwell syncs. Each connector lists items with cheap fingerprints and reads one item's
-bytes (see ``pipeline.sync.Source``); one that can push changes is also watched by the service.
+bytes (see ``connectors.base.Source``); one that can push changes is also watched by the service.
 
 ``build(kind, ...)`` makes the connector a ``[[source]]`` table of the configuration names.
 Each kind's module has ``from_config(name, options, fail, state_dir)``: ``options`` are the

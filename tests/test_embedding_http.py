@@ -1,4 +1,4 @@
-"""The HTTP embedder against a real local OpenAI-compatible server (tests/embedding_server.py).
+"""The HTTP embedder against a real local OpenAI-compatible server (tests/support/).
 
 The server runs the default model in-process and returns its vectors over HTTP on 127.0.0.1, so
 every vector that comes back can be checked against the model itself, and against the

@@ -9,8 +9,8 @@
 | vectors      | text hash            | the embedding cache, so no text is embedded twice         |
 | settings     | key                  | model, dimension and chunking the index was built with    |
 
-This module only knows tables and rows. It does not decide what changed (``sync.py`` does) and
-it never embeds. Every write that must not be repeated is keyed so that repeating it is a no-op,
+This module only knows tables and rows. It does not decide what changed (the engine does) and it
+never embeds. Every write that must not be repeated is keyed so that repeating it is a no-op,
 which is what lets a crashed batch be re-run safely.
 """
 
@@ -309,7 +309,7 @@ class Store:
     ) -> list[dict[str, Any]]:
         """The k rows nearest to ``vector`` by cosine distance (``_distance`` = 1 - cosine).
 
-        Exact while the table has no vector index; with one (see maintenance.ensure_indexes),
+        Exact while the table has no vector index; with one (see upkeep.ensure_indexes),
         IVF search refined on the original vectors, which keeps recall@10 at 1.00 in our
         measurement at 100,000 rows.
         """
