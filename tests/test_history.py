@@ -372,3 +372,22 @@ def test_store_folder_opens_after_history_operations(tmp_path, small_corpus, has
     three_commits(ix, small_corpus)
     ix.maintain(yes=True)
     assert Store.open(ix.path).count("chunks") == ix.status()["totals"]["chunks"]
+
+
+def test_erase_takes_the_path_on_disk_absolute_or_relative(
+    tmp_path, small_corpus, hash_embedder, monkeypatch, capsys
+):
+    ix = make_index(tmp_path, hash_embedder)
+    ix.sync([small_corpus])
+    target = small_corpus / "policies" / "returns.md"
+    # Absolute, as a person copies it from a file manager.
+    result = ix.erase([str(target)], yes=True)
+    assert result["erased"] == ["share:policies/returns.md"]
+    # Relative to the current folder, with a glob, from the command line.
+    monkeypatch.chdir(small_corpus)
+    assert main(["--index", str(ix.path), "erase", "./notices/*.txt", "--yes"]) == 0
+    out = capsys.readouterr().out
+    assert "share:notices/ECN-0007.txt" in out
+    # A place on disk outside every source matches nothing, and says so.
+    with pytest.raises(UsageError, match="no document matches"):
+        ix.erase([str(tmp_path / "elsewhere" / "returns.md")], yes=True)
