@@ -329,6 +329,18 @@ def test_removing_more_than_half_of_a_source_asks_first(tmp_path, small_corpus, 
     assert report["documents"]["removed"] == 2
 
 
+def test_removing_exactly_half_of_a_source_does_not_ask(tmp_path, small_corpus, hash_embedder):
+    # The guard is "more than half": 2 of 4 documents is half, and goes ahead unasked.
+    write(small_corpus / "notices" / "ECN-0008.txt", "ECN-0008\n\nNew bottle cage bolts.\n")
+    ix = make_index(tmp_path, hash_embedder)
+    ix.sync([small_corpus])
+    assert ix.status()["totals"]["documents"] == 4
+    shutil.rmtree(small_corpus / "notices")
+    asked = []
+    report = ix.sync([small_corpus], confirm=lambda msg: asked.append(msg) or False).as_dict()
+    assert asked == [] and report["documents"]["removed"] == 2
+
+
 def test_sources_are_independent(tmp_path, small_corpus, hash_embedder):
     other = tmp_path / "handbook"
     write(other / "welcome.md", "# Welcome\n\nThe workshop opens at seven.\n")
