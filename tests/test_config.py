@@ -27,8 +27,13 @@ def test_starter_file_written_by_init_loads_and_means_what_its_comments_say(tmp_
     # the built-in temp-file patterns stay, the configured one is added
     assert "**/*.swp" in source.exclude and "**/drafts/**" in source.exclude
     # a second init does not overwrite
+    target.write_text("# edited by hand\n")
     assert main(["init", str(target)]) == 2
     assert "exists" in capsys.readouterr().err
+    assert target.read_text() == "# edited by hand\n"
+    # --force overwrites it with the starter again
+    assert main(["init", str(target), "--force"]) == 0
+    assert target.read_text() == STARTER_TEXT
 
 
 def test_example_config_in_ops_loads():
