@@ -421,3 +421,42 @@ def test_the_snippet_is_taken_around_the_best_matching_sentence():
     assert len(snippet) <= 130
     marked = highlight("Mineral oil only, never brake fluid.", "mineral OIL", "[", "]")
     assert marked == "[Mineral] [oil] only, never brake fluid."
+
+
+def test_http_search_refuses_bad_input_with_400_and_survives_load(index):
+    import http.client
+    from concurrent.futures import ThreadPoolExecutor
+
+    server = start_http_server(_ServiceStandIn(index), ServerConfig(host="127.0.0.1", port=0))
+    port = server.server_address[1]
+
+    def status_of(path: str) -> int:
+        conn = http.client.HTTPConnection("127.0.0.1", port, timeout=60)
+        try:
+            conn.request("GET", path)
+            response = conn.getresponse()
+            response.read()
+            return response.status
+        finally:
+            conn.close()
+
+    try:
+        assert status_of("/search?q=seat&k=abc") == 400
+        assert status_of("/search?q=seat&k=0") == 400
+        assert status_of("/search?q=seat&k=101") == 400
+        assert status_of("/search?q=seat&kk=3") == 400  # unknown parameter, named
+        assert status_of("/search?q=%3F%21") == 400  # punctuation only
+        assert status_of("/search?q=seat&per_doc=x") == 400
+        assert status_of("/status?verbose=1") == 400
+        assert status_of("/search?q=%ff%fe%fd+seat") == 200  # invalid UTF-8 is replaced
+        # A 1 MB query string: http.server refuses a request line over 64 KiB with 414.
+        assert status_of("/search?q=" + "a" * 1_000_000) == 414
+        # A bounded load: 240 requests from 8 threads, every one answered, none a 500.
+        paths = ["/search?q=seat+clamp&k=3", "/search?q=ECN-0141&mode=keyword", "/healthz"]
+        with ThreadPoolExecutor(max_workers=8) as pool:
+            codes = list(pool.map(status_of, [paths[i % 3] for i in range(240)]))
+        assert codes.count(200) == 240
+        assert status_of("/healthz") == 200
+    finally:
+        server.shutdown()
+        server.server_close()

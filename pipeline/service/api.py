@@ -42,6 +42,13 @@ class Service(Protocol):
 
 log = logging.getLogger("upwell.http")
 MAX_K = 100
+#: The query parameters each endpoint takes; any other is a 400 that names it.
+PARAMETERS: dict[str, set[str]] = {
+    "/search": {"q", "k", "mode", "source", "path", "type", "since", "per_doc"},
+    "/status": set(),
+    "/healthz": set(),
+    "/metrics": set(),
+}
 
 
 def hit_json(h: Hit) -> dict[str, Any]:
@@ -105,6 +112,12 @@ class _Handler(BaseHTTPRequestHandler):
             )
             return
         try:
+            unknown = sorted(set(query) - PARAMETERS.get(url.path, set()))
+            if unknown:
+                known = ", ".join(sorted(PARAMETERS.get(url.path, set()))) or "none"
+                raise UsageError(
+                    f"unknown parameter {unknown[0]!r} for {url.path} (it takes: {known})"
+                )
             route(query)
         except UsageError as exc:
             self._send_json(400, {"error": str(exc)})
@@ -148,8 +161,8 @@ class _Handler(BaseHTTPRequestHandler):
             k = int((query.get("k") or ["5"])[0])
         except ValueError:
             raise UsageError("k must be a whole number") from None
-        if k > MAX_K:
-            raise UsageError(f"k must be at most {MAX_K}")
+        if not 1 <= k <= MAX_K:
+            raise UsageError(f"k must be between 1 and {MAX_K}, not {k}")
         per_doc = None
         if query.get("per_doc"):
             try:
