@@ -1,0 +1,1 @@
+"""Labelled retrieval questions and the deterministic Marrowby Cycle Works corpus they ask about."""
