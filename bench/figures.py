@@ -1146,6 +1146,6 @@ FIGURES: dict[str, Callable[[Bench], Figure]] = {
     "peak_rss_mb": peak_rss_mb,
     "many_commits": many_commits,
     "save_to_searchable": save_to_searchable,
-    # "retrieval": registered with its question set
+    "retrieval": retrieval,
     "keyword_sync_cost": keyword_sync_cost,
 }

@@ -142,3 +142,11 @@ def test_the_full_run_paths_build_the_large_corpus_once(tmp_path: Path) -> None:
     assert rss.extra["peak_rss_mb_20000"] > 0
     assert rescan.extra["rescan_detail"]["sync_documents"] == 9
     assert bench.shared["large_build"]["full_documents"] == 9
+
+
+def test_the_labelled_question_set_checks_out_against_its_documents(capsys) -> None:
+    # Every label (file, page, heading, time range) is checked against the documents with
+    # independent readers (pypdf, python-docx, lxml), and the corpus is written byte for byte.
+    from bench.retrieval.check import main as check_questions
+
+    assert check_questions() == 0, capsys.readouterr().out
