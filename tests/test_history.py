@@ -391,3 +391,20 @@ def test_erase_takes_the_path_on_disk_absolute_or_relative(
     # A place on disk outside every source matches nothing, and says so.
     with pytest.raises(UsageError, match="no document matches"):
         ix.erase([str(tmp_path / "elsewhere" / "returns.md")], yes=True)
+
+
+def test_rollback_to_a_commit_whose_versions_maintain_removed_is_a_clear_error(
+    tmp_path, small_corpus, hash_embedder
+):
+    ix = make_index(tmp_path, hash_embedder)
+    reports = three_commits(ix, small_corpus)
+    ix.maintain(keep_days=0, yes=True)
+    before = ix.status()
+    with pytest.raises(UnknownVersion) as caught:
+        ix.rollback(reports[0]["commit"], yes=True)
+    message = str(caught.value)
+    assert "no longer stored" in message and "upwell history" in message
+    assert ".manifest" not in message and ".rs:" not in message  # no storage internals
+    assert ix.status()["version"] == before["version"]  # nothing was changed
+    with pytest.raises(UnknownVersion, match="no longer stored"):
+        ix.search("returns", k=1, as_of=reports[0]["commit"])

@@ -179,9 +179,12 @@ def dataset_at(store: Store, table: str, version: int) -> Any:
     try:
         return store.table(table).to_lance().checkout_version(version)
     except (ValueError, RuntimeError, OSError) as exc:
+        # Lance's own message names its manifest file and source lines: the cause is enough.
+        cause = "not found" if "not found" in str(exc).lower() else first_line(exc)
         raise UnknownVersion(
-            f"version {version} of the {table} table is no longer stored (removed by `upwell "
-            f"maintain` retention or by an erasure): {first_line(exc)}"
+            f"version {version} of the {table} table is no longer stored ({cause}; removed by "
+            "`upwell maintain` retention or by an erasure): `upwell history` lists the commits "
+            "that can still be searched, diffed and rolled back to"
         ) from None
 
 
