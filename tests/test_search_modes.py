@@ -463,3 +463,17 @@ def test_http_search_refuses_bad_input_with_400_and_survives_load(index):
     finally:
         server.shutdown()
         server.server_close()
+
+
+def test_http_search_is_503_until_the_index_exists(tmp_path):
+    empty = Index(tmp_path / "not-yet", model="hash")
+    server = start_http_server(_ServiceStandIn(empty), ServerConfig(host="127.0.0.1", port=0))
+    try:
+        url = f"http://127.0.0.1:{server.server_address[1]}/search?q=seat"
+        with pytest.raises(urllib.error.HTTPError) as caught:
+            urllib.request.urlopen(url, timeout=30)
+        assert caught.value.code == 503
+        assert "index" in json.loads(caught.value.read())["error"]
+    finally:
+        server.shutdown()
+        server.server_close()
