@@ -17,6 +17,7 @@ import signal
 import statistics
 import subprocess
 import sys
+import threading
 import time
 import urllib.error
 import urllib.request
@@ -563,3 +564,50 @@ def test_save_to_searchable_latency_with_the_default_model(tmp_path, watches):
     p50 = statistics.median(latencies)
     p95 = statistics.quantiles(latencies, n=20)[-1]
     print(f"\nsave-to-searchable over {len(latencies)} saves: p50 {p50:.2f} s, p95 {p95:.2f} s")
+
+
+@pytest.mark.filterwarnings("ignore::pytest.PytestUnhandledThreadExceptionWarning")
+def test_healthz_turns_unhealthy_when_the_writer_thread_dies(tmp_path, monkeypatch):
+    # The real service in this process, its writer loop replaced by one that dies at once.
+    from pipeline.config import parse_config
+    from pipeline.index import Index
+    from pipeline.service.daemon import Service
+
+    share = tmp_path / "share"
+    write(share / "a.md", "# A\n\nThe seat clamp takes 6 Nm.\n")
+    config = parse_config(
+        {
+            "index": {"path": str(tmp_path / "ix"), "model": "hash"},
+            "server": {"listen": "127.0.0.1:0"},
+            "source": [{"name": "share", "path": str(share)}],
+        },
+        tmp_path / "upwell.toml",
+    )
+
+    def writer_dies(self):
+        raise RuntimeError("writer killed by the test")
+
+    monkeypatch.setattr(Service, "_writer_loop", writer_dies)
+    service = Service(config, Index(config.index_path, model="hash"))
+    runner = threading.Thread(target=service.run, kwargs={"install_signals": False}, daemon=True)
+    runner.start()
+    try:
+        deadline = time.monotonic() + START_DEADLINE
+        while service._http is None and time.monotonic() < deadline:
+            time.sleep(0.05)
+        port = service._http.server_address[1]
+        codes = []
+        while time.monotonic() < deadline:
+            try:
+                with urllib.request.urlopen(f"http://127.0.0.1:{port}/healthz", timeout=5) as r:
+                    codes.append(r.status)
+            except urllib.error.HTTPError as exc:
+                codes.append(exc.code)
+                if exc.code == 503:
+                    break
+            time.sleep(0.1)
+        assert codes and codes[-1] == 503
+        assert not service.healthy()
+    finally:
+        service.stop_event.set()
+        runner.join(timeout=60)
