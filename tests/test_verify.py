@@ -229,3 +229,23 @@ def assert_repair_equals_clean_build(capsys, ix: Path, share: Path, tmp_path: Pa
     shutil.rmtree(clean, ignore_errors=True)
     Index(clean, model="hash").sync([str(share)])
     assert snapshot(ix) == snapshot(clean)
+
+
+def test_repair_without_yes_repairs_what_removes_nothing_and_asks_before_a_mass_removal(
+    built, capsys
+):
+    ix, share = built
+    # Drift that adds and changes only: no confirmation is needed, --yes or not.
+    write(share / "policies" / "new.md", "# New\n\nA brand new policy about test rides.\n")
+    code, _ = run_verify(capsys, ix, "--repair")
+    assert code == 0
+    assert run_verify(capsys, ix)[0] == 0
+    # Drift that would remove most of the source (an emptied share): without --yes, repair
+    # refuses with exit code 2 (no terminal to ask on) and removes nothing.
+    before = Index(ix).status()["totals"]["documents"]
+    for path in list(share.rglob("*")):
+        if path.is_file() and path.name != "new.md":
+            path.unlink()
+    assert main(["--index", str(ix), "verify", "--repair"]) == 2
+    assert "--yes" in capsys.readouterr().err
+    assert Index(ix).status()["totals"]["documents"] == before
