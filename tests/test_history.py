@@ -408,3 +408,43 @@ def test_rollback_to_a_commit_whose_versions_maintain_removed_is_a_clear_error(
     assert ix.status()["version"] == before["version"]  # nothing was changed
     with pytest.raises(UnknownVersion, match="no longer stored"):
         ix.search("returns", k=1, as_of=reports[0]["commit"])
+
+
+def test_rollback_restores_a_modified_documents_earlier_text(tmp_path, small_corpus, hash_embedder):
+    ix = make_index(tmp_path, hash_embedder)
+    reports = three_commits(ix, small_corpus)  # the second commit changed returns.md to 60 days
+    assert "60 days" in _text_of(ix, "share:policies/returns.md")
+    ix.rollback(reports[0]["commit"], yes=True)
+    text = _text_of(ix, "share:policies/returns.md")
+    assert "60 days" not in text and "30 days" in text
+    hits = ix.search("Returns are accepted for 60 days", k=5, mode="keyword")
+    assert all("60 days" not in h.text for h in hits)
+
+
+def _text_of(ix: Index, doc_id: str) -> str:
+    rows = (
+        ix.store()
+        .table("chunks")
+        .to_lance()
+        .to_table(columns=["text"], filter=f"doc_id = '{doc_id}'")
+    )
+    return " ".join(rows["text"].to_pylist())
+
+
+def test_rebuild_with_a_new_model_reembeds_everything_from_the_stored_text(
+    tmp_path, small_corpus, hash_embedder, capsys
+):
+    ix = make_index(tmp_path, hash_embedder)
+    ix.sync([small_corpus])
+    shutil.rmtree(small_corpus)  # the stored text is enough
+    into = tmp_path / "rebuilt"
+    code = main(["--index", str(ix.path), "rebuild", "--into", str(into), "--new-model", "default"])
+    assert code == 0, capsys.readouterr().err
+    new = Index(into)
+    assert new.store().settings()["model_id"] != ix.store().settings()["model_id"]
+    assert new.status()["totals"]["chunks"] == ix.status()["totals"]["chunks"]
+    # Every chunk was embedded by the new model: none of the hash model's vectors was reused.
+    report = new.history()[0]
+    assert report.chunks["embedded"] == new.status()["totals"]["chunks"]
+    assert report.chunks["reused"] == 0
+    assert new.search("how long do I have to return a bike", k=1)[0].path == "policies/returns.md"
