@@ -39,7 +39,7 @@ from dataclasses import dataclass, field
 from email.utils import parsedate_to_datetime
 from pathlib import Path
 from typing import Any
-from urllib.parse import unquote, urlsplit, urlunsplit
+from urllib.parse import unquote, urljoin, urlsplit, urlunsplit
 
 import urllib3
 
@@ -64,6 +64,12 @@ DEFAULT_MISSES_BEFORE_REMOVAL = 3
 SITEMAP_MAX_BYTES = 50 * 1024 * 1024
 SITEMAP_MAX_URLS = 50_000
 SITEMAP_NAMESPACE = "{http://www.sitemaps.org/schemas/sitemap/0.9}"
+
+#: Sent with every request (a gzip body is decoded on the way in).
+_BASE_HEADERS = {"User-Agent": "upwell", "Accept-Encoding": "gzip"}
+#: Redirects followed for one page, each within the site (same scheme and host).
+MAX_REDIRECTS = 5
+_REDIRECT_STATUSES = frozenset({301, 302, 303, 307, 308})
 
 # Answers worth asking again: the server is busy or failing now (RFC 9110 section 15.6 [from
 # memory];
@@ -445,7 +451,7 @@ class HttpSource:
                     num_pools=4,
                     maxsize=self.per_host,
                     block=True,  # at most per_host connections to the site, ever
-                    headers={"User-Agent": "upwell", "Accept-Encoding": "gzip"},
+                    headers=_BASE_HEADERS,
                 )
             return self._pool
 
@@ -473,19 +479,44 @@ class HttpSource:
 
     def _get_once(self, url: str, headers: Mapping[str, str], limit: int) -> _Answer:
         deadline = time.monotonic() + self.timeout
-        try:
-            response = self._http().request(
-                "GET",
-                url,
-                headers=dict(headers),
-                preload_content=False,
-                timeout=urllib3.Timeout(connect=self.timeout, read=self.timeout),
-                retries=urllib3.Retry(total=None, connect=0, read=0, status=0, other=0, redirect=5),
-            )
-        except urllib3.exceptions.MaxRetryError as exc:
-            return _Answer(None, problem=_describe(exc.reason or exc))
-        except (urllib3.exceptions.HTTPError, OSError) as exc:
-            return _Answer(None, problem=_describe(exc))
+        origin = urlsplit(url)[:2]
+        current = url
+        for _hop in range(MAX_REDIRECTS + 1):
+            try:
+                response = self._http().request(
+                    "GET",
+                    current,
+                    # Given per request, these replace the pool's headers: name them all.
+                    headers={**_BASE_HEADERS, **headers},
+                    preload_content=False,
+                    timeout=urllib3.Timeout(connect=self.timeout, read=self.timeout),
+                    retries=urllib3.Retry(
+                        total=None, connect=0, read=0, status=0, other=0, redirect=0
+                    ),
+                    redirect=False,
+                )
+            except urllib3.exceptions.MaxRetryError as exc:
+                return _Answer(None, problem=_describe(exc.reason or exc))
+            except (urllib3.exceptions.HTTPError, OSError) as exc:
+                return _Answer(None, problem=_describe(exc))
+            location = response.headers.get("Location")
+            if response.status not in _REDIRECT_STATUSES or not location:
+                break
+            response.drain_conn()
+            response.release_conn()
+            target = urljoin(current, location)
+            if urlsplit(target)[:2] != origin:
+                # Only within the site and its scheme: never to another host, never to
+                # another scheme (https to http, or file:).
+                # An answer (its status), not a failure to answer: asking again would not help.
+                return _Answer(
+                    response.status,
+                    problem=f"redirected to {target}, off the site; upwell follows redirects "
+                    "only within the site and its scheme",
+                )
+            current = target
+        else:
+            return _Answer(response.status, problem=f"more than {MAX_REDIRECTS} redirects")
         try:
             received = {k.lower(): v for k, v in response.headers.items()}
             if response.status != 200:

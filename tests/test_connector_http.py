@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import contextlib
 import email.utils
+import gzip
 import hashlib
 import re
 import socket
@@ -62,6 +63,9 @@ class Site:
         self.status: dict[str, int] = {}
         self.delay: dict[str, float] = {}
         self.content_types: dict[str, str] = {}
+        self.redirects: dict[str, str] = {}  # path -> Location of a 302
+        self.gzipped: set[str] = set()  # paths sent with Content-Encoding: gzip
+        self.unsized: set[str] = set()  # paths sent with no Content-Length, then closed
         self.requests: list[tuple[str, int, dict[str, str]]] = []  # path, status, headers
         self.lock = threading.Lock()
         self.in_flight = 0
@@ -95,6 +99,14 @@ class Site:
 
             def _answer(self):
                 path = self.path
+                if path in site.redirects:
+                    with site.lock:
+                        site.requests.append((path, 302, dict(self.headers)))
+                    self.send_response(302)
+                    self.send_header("Location", site.redirects[path])
+                    self.send_header("Content-Length", "0")
+                    self.end_headers()
+                    return
                 time.sleep(site.delay.get(path, site.delay.get("*", 0.0)))
                 forced = site.status.get(path, site.status.get("*"))
                 body = site.pages.get(path)
@@ -126,10 +138,15 @@ class Site:
                         "Last-Modified", email.utils.formatdate(LAST_MODIFIED, usegmt=True)
                     )
                 payload = body if status == 200 and body is not None else b""
+                if status == 200 and path in site.gzipped:
+                    payload = gzip.compress(payload, mtime=0)
+                    self.send_header("Content-Encoding", "gzip")
                 if status == 200:
                     kind = "text/plain" if path.endswith(".txt") else "text/html; charset=utf-8"
                     self.send_header("Content-Type", site.content_types.get(path, kind))
-                if status != 304:
+                if path in site.unsized:
+                    self.close_connection = True  # the body ends when the connection does
+                elif status != 304:
                     self.send_header("Content-Length", str(len(payload)))
                 self.end_headers()
                 self.wfile.write(payload)
@@ -362,6 +379,52 @@ def test_oversized_and_mistyped_pages_fail_without_losing_anything(site, tmp_pat
     assert "over the size limit of 1,000 bytes" in reasons["manual/frame.html"]
     assert reasons["manual/wheels.html"] == "served as application/pdf, not as an HTML page"
     assert report.counts.documents["added"] == 1
+
+
+def test_redirects_are_followed_within_the_site_only(site, tmp_path):
+    other = Site(PAGES)  # another site: same pages, another host:port
+    try:
+        site.redirects["/old/brakes"] = "/manual/brakes"
+        site.redirects["/away"] = other.url("/manual/brakes")
+        site.redirects["/file"] = "file:///etc/passwd"
+        site.redirects["/loop"] = "/loop"
+        source = HttpSource(
+            "web",
+            urls=[site.url(p) for p in ("/old/brakes", "/away", "/file", "/loop", "/manual/")],
+            state_dir=tmp_path / "state",
+            backoff_seconds=0.01,
+            retries=0,
+        )
+        items = {item.key: item for item in source.list_items()}
+        assert sorted(items) == ["manual/index.html", "old/brakes.html"]
+        assert source.read("old/brakes.html", 10**6) == PAGES["/manual/brakes"]
+        problems = dict(source.problems)
+        assert problems["away.html"].startswith(f"redirected to {other.url('/manual/brakes')}")
+        assert "off the site" in problems["file.html"] and "attempt" not in problems["file.html"]
+        assert problems["loop.html"].startswith("more than 5 redirects")
+        assert other.requests == []  # the other host was never asked
+    finally:
+        other.stop()
+
+
+def test_a_gzip_body_is_decoded_and_an_endless_body_is_cut_with_a_reason(site, tmp_path):
+    site.gzipped.add("/manual/wheels")
+    site.pages["/manual/frame"] = page("Frame sizes", "Sizes " * 400)
+    site.unsized.add("/manual/frame")
+    index = Index(tmp_path / "ix", model="hash")
+    source = HttpSource(
+        "web",
+        urls=[site.url(p) for p in ("/manual/wheels", "/manual/frame")],
+        state_dir=tmp_path / "state",
+        max_bytes=1000,
+    )
+    report = index.sync([source])
+    # Reference: gzip (RFC 1952) round trip by the standard library on the server side.
+    assert "gzip" in site.requests[0][2].get("Accept-Encoding", "")
+    wheels = index.search("true the rim", k=1, mode="keyword")[0]
+    assert wheels.path == "manual/wheels.html" and "wobble" in wheels.text
+    reasons = {f.path: f.reason for f in report.failures}
+    assert "over the size limit of 1,000 bytes" in reasons["manual/frame.html"]
 
 
 # --- sitemaps ------------------------------------------------------------------------------
