@@ -440,3 +440,40 @@ def test_readme_examples_for_polled_and_git_sources_are_valid_configuration(tmp_
     assert kinds["polled"].every == 600 and kinds["polled"].watch is False
     git_example = kinds["git"].connector(tmp_path / "state")
     assert (git_example.ref, git_example.subdir) == ("main", "docs")
+
+
+def test_a_force_push_that_rewrites_history_syncs_to_the_new_tree(tmp_path):
+    repo = new_repo(tmp_path / "origin")
+    write(repo / "policies" / "returns.md", RETURNS)
+    write(repo / "notices" / "ECN-0007.txt", NOTICE)
+    commit_all(repo, "first")
+    write(repo / "notices" / "ECN-0008.txt", "ECN-0008\n\nBottle cage bolts are now M5.\n")
+    pushed = commit_all(repo, "a commit that will be taken back")
+    index = Index(tmp_path / "ix", model="hash")
+    index.sync([git_source(tmp_path, str(repo))])
+    assert revisions(index)[-1] == pushed
+    # The branch is rewritten: the last commit is dropped and another takes its place, so the
+    # mirror's old tip is no ancestor of the new one.
+    git(repo, "reset", "-q", "--hard", "HEAD~1")
+    write(repo / "policies" / "warranty.md", "# Warranty\n\nFrames carry a five year warranty.\n")
+    rewritten = commit_all(repo, "the rewritten history")
+    report = index.sync([git_source(tmp_path, str(repo))])
+    assert revisions(index)[-1] == rewritten
+    docs = report.counts.documents
+    assert (docs["added"], docs["removed"]) == (1, 1)
+    paths = {d["path"] for d in index.store().documents_of_source("workshop").values()}
+    assert paths == {"policies/returns.md", "notices/ECN-0007.txt", "policies/warranty.md"}
+
+
+def test_submodules_are_skipped(tmp_path):
+    inner = new_repo(tmp_path / "inner")
+    write(inner / "readme.md", "# Inner\n\nA vendored repository.\n")
+    commit_all(inner, "inner")
+    repo = new_repo(tmp_path / "origin")
+    write(repo / "policies" / "returns.md", RETURNS)
+    git(repo, "-c", "protocol.file.allow=always", "submodule", "add", "-q", str(inner), "vendor")
+    commit_all(repo, "with a submodule")
+    assert "160000 commit" in git(repo, "ls-tree", "HEAD", "vendor")  # a gitlink, mode 160000
+    source = git_source(tmp_path, str(repo))
+    keys = sorted(item.key for item in source.list_items())
+    assert keys == ["policies/returns.md"]  # neither the gitlink nor the inner repository's files
