@@ -611,3 +611,51 @@ def test_healthz_turns_unhealthy_when_the_writer_thread_dies(tmp_path, monkeypat
     finally:
         service.stop_event.set()
         runner.join(timeout=60)
+
+
+def _run_service_in_process(config):
+    """The real service in a thread of this process; returns (service, thread)."""
+    from pipeline.index import Index
+    from pipeline.service.daemon import Service
+
+    service = Service(config, Index(config.index_path, model="hash"))
+    runner = threading.Thread(target=service.run, kwargs={"install_signals": False}, daemon=True)
+    runner.start()
+    return service, runner
+
+
+def test_scheduled_scans_and_the_reconcile_fire_on_their_own(tmp_path):
+    # Intervals shortened to seconds; nothing but the scheduler asks for these syncs.
+    from pipeline.config import parse_config
+
+    office = tmp_path / "office"
+    write(office / "a.md", "# A\n\nThe seat clamp takes 6 Nm.\n")
+    config = parse_config(
+        {
+            "index": {"path": str(tmp_path / "ix"), "model": "hash"},
+            "server": {"listen": "127.0.0.1:0"},
+            "service": {"reconcile_every": "2s"},
+            "source": [{"name": "office", "kind": "polled", "path": str(office), "every": "1s"}],
+        },
+        tmp_path / "upwell.toml",
+    )
+    service, runner = _run_service_in_process(config)
+    try:
+        deadline = time.monotonic() + START_DEADLINE
+
+        def triggers() -> list[str]:
+            if not service.index.exists:
+                return []
+            return [c.trigger for c in service.index.history()]
+
+        while "start" not in triggers() and time.monotonic() < deadline:
+            time.sleep(0.1)
+        write(office / "b.md", "# B\n\nA new note about bottle cages.\n")
+        while not (set(triggers()) & {"schedule", "reconcile"}) and time.monotonic() < deadline:
+            time.sleep(0.1)
+        assert set(triggers()) & {"schedule", "reconcile"}, triggers()
+        docs = service.index.store().documents_of_source("office")
+        assert {d["path"] for d in docs.values()} == {"a.md", "b.md"}
+    finally:
+        service.stop_event.set()
+        runner.join(timeout=60)
