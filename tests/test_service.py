@@ -659,3 +659,39 @@ def test_scheduled_scans_and_the_reconcile_fire_on_their_own(tmp_path):
     finally:
         service.stop_event.set()
         runner.join(timeout=60)
+
+
+def test_the_nightly_maintenance_job_runs_when_its_time_comes(tmp_path):
+    # Its clock is moved, not waited for: the job's next run is set to now.
+    from datetime import datetime
+
+    from pipeline.config import parse_config
+
+    share = tmp_path / "share"
+    write(share / "a.md", "# A\n\nThe seat clamp takes 6 Nm.\n")
+    config = parse_config(
+        {
+            "index": {"path": str(tmp_path / "ix"), "model": "hash"},
+            "server": {"listen": "127.0.0.1:0"},
+            "source": [{"name": "share", "path": str(share)}],
+        },
+        tmp_path / "upwell.toml",
+    )
+    service, runner = _run_service_in_process(config)
+    try:
+        deadline = time.monotonic() + START_DEADLINE
+        while not service.index.exists or not service.index.history():
+            assert time.monotonic() < deadline, "the first sync never committed"
+            time.sleep(0.1)
+        settings = service.index.store().settings
+        assert "maintained_chunks_version" not in settings()
+        job = service._scheduler.get_job("maintenance")
+        assert "hour='3', minute='30'" in str(job.trigger)  # 03:30, the default
+        job.modify(next_run_time=datetime.now(job.next_run_time.tzinfo))
+        while "maintained_chunks_version" not in settings():
+            assert time.monotonic() < deadline, "maintenance never ran"
+            time.sleep(0.1)
+            service.index.store().refresh()
+    finally:
+        service.stop_event.set()
+        runner.join(timeout=60)
