@@ -415,6 +415,13 @@ class Index:
         if recorded != before:
             store.update_setting("source_problems", recorded)
 
+    def record_source_error(self, source: str, reason: str) -> None:
+        """Show in ``status`` (and the service's /healthz) that ``source`` was not synced and
+        why, until a sync of it succeeds; for a refusal the sync itself did not record, such
+        as a removal of most of a source that needs confirmation."""
+        with self.writing():
+            self._record_source_errors(self._open_existing_for_writing(None), {source: reason}, [])
+
     @staticmethod
     def _record_source_errors(store: Store, failed: dict[str, str], fine: Sequence[str]) -> None:
         errors: dict[str, Any] = dict(store.settings().get("source_errors") or {})

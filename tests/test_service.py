@@ -695,3 +695,66 @@ def test_the_nightly_maintenance_job_runs_when_its_time_comes(tmp_path):
     finally:
         service.stop_event.set()
         runner.join(timeout=60)
+
+
+def test_an_unmounted_share_removes_nothing_says_why_and_recovers(tmp_path):
+    from pipeline.config import parse_config
+
+    share = tmp_path / "share"
+    write(share / "a.md", "# A\n\nThe seat clamp takes 6 Nm.\n")
+    write(share / "b.md", "# B\n\nBottle cage bolts are M5.\n")
+    config = parse_config(
+        {
+            "index": {"path": str(tmp_path / "ix"), "model": "hash"},
+            "server": {"listen": "127.0.0.1:0"},
+            "service": {"reconcile_every": "1s"},
+            "source": [{"name": "share", "path": str(share)}],
+        },
+        tmp_path / "upwell.toml",
+    )
+    service, runner = _run_service_in_process(config)
+    try:
+        deadline = time.monotonic() + START_DEADLINE
+        while not service.index.exists or not service.index.history():
+            assert time.monotonic() < deadline, "the first sync never committed"
+            time.sleep(0.1)
+        port = service._http.server_address[1]
+
+        def get(path: str) -> dict:
+            with urllib.request.urlopen(f"http://127.0.0.1:{port}{path}", timeout=10) as r:
+                return json.loads(r.read())
+
+        # The share goes away, as an unmounted network share does.
+        share.rename(tmp_path / "share-unmounted")
+        while "share" not in get("/healthz").get("sources_failing", {}):
+            assert time.monotonic() < deadline, "the missing share was never reported"
+            time.sleep(0.2)
+        health = get("/healthz")
+        assert health["ok"] is True and "share" in health["sources_failing"]["share"]
+        status = get("/status")
+        (source,) = status["sources"]
+        assert source["documents"] == 2 and "error" in source  # nothing removed, and why
+        assert status["totals"]["documents"] == 2
+        # It comes back: the error clears by itself and nothing was lost.
+        (tmp_path / "share-unmounted").rename(share)
+        while get("/healthz").get("sources_failing"):
+            assert time.monotonic() < deadline, "the service never recovered"
+            time.sleep(0.2)
+        assert get("/status")["totals"]["documents"] == 2
+        # The mount point stays but is empty: removing every document needs confirmation,
+        # which a service never gives itself. Nothing is removed, and /healthz says why.
+        for name in ("a.md", "b.md"):
+            (share / name).rename(tmp_path / name)
+        while "share" not in get("/healthz").get("sources_failing", {}):
+            assert time.monotonic() < deadline, "the emptied share was never reported"
+            time.sleep(0.2)
+        assert "not synced" in get("/healthz")["sources_failing"]["share"]
+        assert get("/status")["totals"]["documents"] == 2
+        for name in ("a.md", "b.md"):
+            (tmp_path / name).rename(share / name)
+        while get("/healthz").get("sources_failing"):
+            assert time.monotonic() < deadline, "the service never recovered"
+            time.sleep(0.2)
+    finally:
+        service.stop_event.set()
+        runner.join(timeout=60)

@@ -68,6 +68,16 @@ class _Reader:
             self.index.store().refresh()
             return self.index.status()
 
+    def failing_sources(self) -> dict[str, str]:
+        """source -> why its last sync failed, for the sources failing now; {} without an index."""
+        with self._lock:
+            if not self.index.exists:
+                return {}
+            store = self.index.store()
+            store.refresh()
+            errors = store.settings().get("source_errors") or {}
+            return {name: e["reason"] for name, e in sorted(errors.items())}
+
     def search(self, query: str, k: int, **options: Any) -> list[Hit]:
         with self._lock:
             self.index.store().refresh()
@@ -141,7 +151,13 @@ class _Handler(BaseHTTPRequestHandler):
 
     def _healthz(self, query: dict[str, list[str]]) -> None:
         ok = self.server.service.healthy()
-        self._send_json(200 if ok else 503, {"ok": ok})
+        data: dict[str, Any] = {"ok": ok}
+        # The service is alive, but say which sources cannot be synced and why (an unmounted
+        # share, a server that does not answer): their documents stay as they were.
+        failing = self.server.reader.failing_sources()
+        if failing:
+            data["sources_failing"] = failing
+        self._send_json(200 if ok else 503, data)
 
     def _status(self, query: dict[str, list[str]]) -> None:
         service = self.server.service

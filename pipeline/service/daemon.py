@@ -333,6 +333,12 @@ class Service:
             self._source_failed(
                 source.name, "confirmation", f"source {source.name!r} not synced", exc
             )
+            # An emptied share (a mount point left without its mount) lands here: say so in
+            # /status and /healthz until a sync of it succeeds.
+            try:
+                self.index.record_source_error(source.name, f"not synced: {exc}")
+            except UpwellError:
+                pass
             return None
         except SourceError as exc:
             self._source_failed(source.name, "source_unreachable", None, exc)
