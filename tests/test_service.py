@@ -8,6 +8,7 @@ by ``test_save_to_searchable_latency_with_the_default_model``).
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import random
@@ -758,3 +759,60 @@ def test_an_unmounted_share_removes_nothing_says_why_and_recovers(tmp_path):
     finally:
         service.stop_event.set()
         runner.join(timeout=60)
+
+
+def test_an_unreachable_web_source_removes_nothing_is_retried_on_schedule_and_clears(tmp_path):
+    from pipeline.config import parse_config
+    from tests.test_connector_http import PAGES, Site
+
+    site = Site(PAGES)
+    config = parse_config(
+        {
+            "index": {"path": str(tmp_path / "ix"), "model": "hash"},
+            "server": {"listen": "127.0.0.1:0"},
+            "service": {"reconcile_every": "1h"},
+            "source": [
+                {
+                    "name": "web",
+                    "kind": "http",
+                    "urls": [site.url(p) for p in PAGES],
+                    "every": "1s",
+                    "retries": 0,
+                    "timeout": "2s",
+                }
+            ],
+        },
+        tmp_path / "upwell.toml",
+    )
+    service, runner = _run_service_in_process(config)
+    try:
+        deadline = time.monotonic() + START_DEADLINE
+        while not service.index.exists or not service.index.history():
+            assert time.monotonic() < deadline, "the first sync never committed"
+            time.sleep(0.1)
+        port = service._http.server_address[1]
+
+        def get(path: str) -> dict:
+            with urllib.request.urlopen(f"http://127.0.0.1:{port}{path}", timeout=10) as r:
+                return json.loads(r.read())
+
+        site.stop()  # connection refused from now on
+        while "web" not in get("/healthz").get("sources_failing", {}):
+            assert time.monotonic() < deadline, "the unreachable site was never reported"
+            time.sleep(0.2)
+        (source,) = get("/status")["sources"]
+        assert "connection refused" in source["error"]["reason"]
+        assert source["documents"] == len(PAGES)  # nothing removed
+        site.restart()
+        site.reset_log()
+        # The schedule asks again by itself; once the site answers, the error clears.
+        while get("/healthz").get("sources_failing"):
+            assert time.monotonic() < deadline, "the schedule never retried"
+            time.sleep(0.2)
+        assert site.statuses()  # asked again, with no one telling it to
+        assert get("/status")["totals"]["documents"] == len(PAGES)
+    finally:
+        service.stop_event.set()
+        runner.join(timeout=60)
+        with contextlib.suppress(Exception):
+            site.stop()
