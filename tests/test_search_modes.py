@@ -477,3 +477,36 @@ def test_http_search_is_503_until_the_index_exists(tmp_path):
     finally:
         server.shutdown()
         server.server_close()
+
+
+def test_a_token_variable_that_is_empty_refuses_to_start(index, monkeypatch):
+    monkeypatch.setenv("MARROWBY_EMPTY_TOKEN", "")
+    with pytest.raises(UsageError, match="not set or empty"):
+        start_http_server(
+            _ServiceStandIn(index),
+            ServerConfig(host="127.0.0.1", port=0, token_env="MARROWBY_EMPTY_TOKEN"),
+        )
+
+
+def test_an_address_beyond_loopback_is_served_only_with_the_token(index, monkeypatch):
+    from pipeline.config import parse_config
+
+    # Configuration refuses a non-loopback address without a token ...
+    with pytest.raises(UsageError, match="not a loopback address"):
+        parse_config({"server": {"listen": "0.0.0.0:8765"}})
+    # ... and with one, every request needs it. Bound on all addresses, reached (as the
+    # rules of this machine allow) only through 127.0.0.1.
+    monkeypatch.setenv("MARROWBY_TOKEN", "s3cret-for-tests")
+    config = parse_config({"server": {"listen": "0.0.0.0:0", "token_env": "MARROWBY_TOKEN"}})
+    server = start_http_server(_ServiceStandIn(index), config.server)
+    try:
+        url = f"http://127.0.0.1:{server.server_address[1]}/search?q=seat"
+        with pytest.raises(urllib.error.HTTPError) as caught:
+            urllib.request.urlopen(url, timeout=30)
+        assert caught.value.code == 401
+        request = urllib.request.Request(url, headers={"Authorization": "Bearer s3cret-for-tests"})
+        with urllib.request.urlopen(request, timeout=30) as response:
+            assert response.status == 200
+    finally:
+        server.shutdown()
+        server.server_close()
