@@ -816,3 +816,55 @@ def test_an_unreachable_web_source_removes_nothing_is_retried_on_schedule_and_cl
         runner.join(timeout=60)
         with contextlib.suppress(Exception):
             site.stop()
+
+
+def test_a_full_disk_during_a_commit_loses_nothing_is_reported_and_passes(tmp_path, monkeypatch):
+    import errno
+
+    from pipeline.config import parse_config
+    from pipeline.store.tables import Store
+
+    office = tmp_path / "office"
+    write(office / "a.md", "# A\n\nThe seat clamp takes 6 Nm.\n")
+    config = parse_config(
+        {
+            "index": {"path": str(tmp_path / "ix"), "model": "hash"},
+            "server": {"listen": "127.0.0.1:0"},
+            "source": [{"name": "office", "kind": "polled", "path": str(office), "every": "1s"}],
+        },
+        tmp_path / "upwell.toml",
+    )
+    service, runner = _run_service_in_process(config)
+    try:
+        deadline = time.monotonic() + START_DEADLINE
+        while not service.index.exists or not service.index.history():
+            assert time.monotonic() < deadline, "the first sync never committed"
+            time.sleep(0.1)
+        before = service.index.history()[0].id
+        original = Store.replace_chunks
+
+        def disk_full(self, *args, **kwargs):
+            raise OSError(errno.ENOSPC, "No space left on device")
+
+        monkeypatch.setattr(Store, "replace_chunks", disk_full)  # the chunks write hits ENOSPC
+        write(office / "b.md", "# B\n\nBottle cage bolts are M5.\n")
+
+        def failing() -> dict:
+            service.index.store().refresh()
+            return service.index.store().settings().get("source_errors") or {}
+
+        while "office" not in failing():
+            assert time.monotonic() < deadline, "the full disk was never reported"
+            time.sleep(0.2)
+        assert "disk is full" in failing()["office"]["reason"]
+        assert service.index.history()[0].id == before  # still at the previous version
+        assert service.healthy()  # the service carries on
+        monkeypatch.setattr(Store, "replace_chunks", original)  # space is back
+        while failing():
+            assert time.monotonic() < deadline, "the sync never went through once space returned"
+            time.sleep(0.2)
+        docs = service.index.store().documents_of_source("office")
+        assert {d["path"] for d in docs.values()} == {"a.md", "b.md"}
+    finally:
+        service.stop_event.set()
+        runner.join(timeout=60)

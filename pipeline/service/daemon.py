@@ -20,6 +20,7 @@ Guarantees:
 
 from __future__ import annotations
 
+import errno
 import logging
 import os
 import signal
@@ -346,7 +347,19 @@ class Service:
         except UpwellError as exc:
             self._source_failed(source.name, "error", f"source {source.name!r}", exc)
             return None
-        except Exception:
+        except Exception as exc:
+            if _is_disk_full(exc):
+                # The batch failed whole (a commit lands entirely or not at all): the index is
+                # at its previous version. Say so where people look, and go on; the next event
+                # or scan retries, and recovery cleans up what the failed batch half wrote.
+                self._source_failed(source.name, "disk_full", f"source {source.name!r}", exc)
+                try:
+                    self.index.record_source_error(
+                        source.name, f"not synced, the disk is full: {exc}"
+                    )
+                except (OSError, UpwellError):
+                    pass  # the settings cannot be written either; the log line stands
+                return None
             self.metrics.record_failure("internal")
             log.exception(
                 f"source {source.name!r}: unexpected error; will retry on the next event",
@@ -438,3 +451,10 @@ class Service:
             f"maintenance done in {time.monotonic() - started:.1f}s",
             extra={"fields": {"event": "maintenance"}},
         )
+
+
+def _is_disk_full(exc: BaseException) -> bool:
+    """ENOSPC, as the OS raises it or as LanceDB passes on its message."""
+    if isinstance(exc, OSError) and exc.errno == errno.ENOSPC:
+        return True
+    return "no space left on device" in str(exc).lower()
