@@ -1,8 +1,10 @@
 """The HTTP embedder against a real local OpenAI-compatible server (tests/support/).
 
-The server runs the default model in-process and returns its vectors over HTTP on 127.0.0.1, so
-every vector that comes back can be checked against the model itself, and against the
-sentence-transformers reference vectors in tests/fixtures/reference_vectors.npz.
+The server runs the default model in-process and returns its vectors over HTTP on 127.0.0.1.
+Comparing what comes back with the same model is a transport test (batching, order, retries,
+errors lose or swap nothing); it proves nothing about the model. The claim that the vectors
+are the model's is checked against an outside reference, the sentence-transformers vectors in
+tests/fixtures/reference_vectors.npz (test_vectors_match_the_sentence_transformers_reference).
 """
 
 from __future__ import annotations
