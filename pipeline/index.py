@@ -534,13 +534,14 @@ class Index:
         vector = None
         if mode != "keyword":
             vector = np.asarray(self.embedder().embed([text])[0], dtype=np.float32)
-        has_keyword_index = bool(retrieval.keyword_index_names_at(table))
-        if mode == "keyword" and not has_keyword_index:
-            raise UsageError(
-                "this version of the index has no keyword index (it was built before keyword "
-                "search existed): search it with --mode vector, or `upwell rebuild` it"
-            )
-        effective = mode if has_keyword_index else "vector"
+        effective = mode
+        if mode != "vector" and not retrieval.keyword_index_names_at(table):
+            if mode == "keyword":
+                raise UsageError(
+                    "this version of the index has no keyword index (it was built before "
+                    "keyword search existed): search it with --mode vector, or `upwell rebuild` it"
+                )
+            effective = "vector"  # hybrid falls back to the one list this version has
         ranked = retrieval.run_search(
             mode=effective,
             k=k,

@@ -19,7 +19,6 @@ from __future__ import annotations
 
 import re
 import unicodedata
-import warnings
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -159,10 +158,7 @@ def keyword_rows(
     q = table.search(MultiMatchQuery(keyword_query(query), list(KEYWORD_COLUMNS)), query_type="fts")
     if where is not None:
         q = q.where(where, prefilter=True)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        rows = q.select([*columns, "_score"]).limit(limit).to_arrow().to_pylist()
-    return rows
+    return q.select([*columns, "_score"]).limit(limit).to_arrow().to_pylist()
 
 
 def run_search(
@@ -173,15 +169,14 @@ def run_search(
     vector_rows: Callable[[int], list[dict[str, Any]]],
     keyword_rows: Callable[[int], list[dict[str, Any]]],
 ) -> list[Ranked]:
-    """The k best results in ``mode``, at most ``per_doc`` from one document.
+    """The k best results in ``mode`` (one of MODES; the caller checked it), at most ``per_doc``
+    from one document.
 
     ``vector_rows(n)`` and ``keyword_rows(n)`` return the n best rows of each kind (filters
     already applied). With a per-document cap the lists are fetched deeper until k results
     are found or a list runs out.
     """
-    if mode not in MODES:
-        raise UsageError(f"unknown search mode {mode!r}: use one of {', '.join(MODES)}")
-    depth = max(k, FUSION_DEPTH if mode == "hybrid" else k, 3 * k if mode == "hybrid" else k)
+    depth = max(FUSION_DEPTH, 3 * k) if mode == "hybrid" else k
     if per_doc is not None:
         depth = max(depth, 4 * k)
     while True:

@@ -567,253 +567,175 @@ def test_save_to_searchable_latency_with_the_default_model(tmp_path, watches):
     print(f"\nsave-to-searchable over {len(latencies)} saves: p50 {p50:.2f} s, p95 {p95:.2f} s")
 
 
-@pytest.mark.filterwarnings("ignore::pytest.PytestUnhandledThreadExceptionWarning")
-def test_healthz_turns_unhealthy_when_the_writer_thread_dies(tmp_path, monkeypatch):
-    # The real service in this process, its writer loop replaced by one that dies at once.
+# --- the real service in this process: for injected faults and shortened schedules ---------
+
+
+class InProcess:
+    """``Service`` running in a thread of the test's own process, and its HTTP API."""
+
+    def __init__(self, service: Any) -> None:
+        self.service = service
+        self.index = service.index
+
+    def get(self, path: str) -> tuple[int, Any]:
+        port = self.service._http.server_address[1]
+        try:
+            with urllib.request.urlopen(f"http://127.0.0.1:{port}{path}", timeout=10) as r:
+                return r.status, json.loads(r.read())
+        except urllib.error.HTTPError as exc:
+            return exc.code, json.loads(exc.read())
+
+    def json(self, path: str) -> Any:
+        code, data = self.get(path)
+        assert code == 200, (code, data)
+        return data
+
+    def failing(self) -> dict[str, str]:
+        return self.json("/healthz").get("sources_failing", {})
+
+
+@contextlib.contextmanager
+def in_process(
+    tmp_path: Path, sources: list[dict], *, service: dict | None = None, first_commit: bool = True
+) -> Iterator[InProcess]:
     from pipeline.config import parse_config
     from pipeline.index import Index
     from pipeline.service.daemon import Service
 
-    share = tmp_path / "share"
-    write(share / "a.md", "# A\n\nThe seat clamp takes 6 Nm.\n")
     config = parse_config(
         {
             "index": {"path": str(tmp_path / "ix"), "model": "hash"},
             "server": {"listen": "127.0.0.1:0"},
-            "source": [{"name": "share", "path": str(share)}],
+            "service": service or {},
+            "source": sources,
         },
         tmp_path / "upwell.toml",
     )
+    running = Service(config, Index(config.index_path, model="hash"))
+    runner = threading.Thread(target=running.run, kwargs={"install_signals": False}, daemon=True)
+    runner.start()
+    try:
+        wait_for("the API to listen", lambda: running._http is not None, START_DEADLINE)
+        if first_commit:
+            wait_for(
+                "the first sync to commit",
+                lambda: running.index.exists and running.index.history(),
+                START_DEADLINE,
+            )
+        yield InProcess(running)
+    finally:
+        running.stop_event.set()
+        runner.join(timeout=60)
+
+
+@pytest.mark.filterwarnings("ignore::pytest.PytestUnhandledThreadExceptionWarning")
+def test_healthz_turns_unhealthy_when_the_writer_thread_dies(tmp_path, monkeypatch):
+    from pipeline.service.daemon import Service
 
     def writer_dies(self):
         raise RuntimeError("writer killed by the test")
 
     monkeypatch.setattr(Service, "_writer_loop", writer_dies)
-    service = Service(config, Index(config.index_path, model="hash"))
-    runner = threading.Thread(target=service.run, kwargs={"install_signals": False}, daemon=True)
-    runner.start()
-    try:
-        deadline = time.monotonic() + START_DEADLINE
-        while service._http is None and time.monotonic() < deadline:
-            time.sleep(0.05)
-        port = service._http.server_address[1]
-        codes = []
-        while time.monotonic() < deadline:
-            try:
-                with urllib.request.urlopen(f"http://127.0.0.1:{port}/healthz", timeout=5) as r:
-                    codes.append(r.status)
-            except urllib.error.HTTPError as exc:
-                codes.append(exc.code)
-                if exc.code == 503:
-                    break
-            time.sleep(0.1)
-        assert codes and codes[-1] == 503
-        assert not service.healthy()
-    finally:
-        service.stop_event.set()
-        runner.join(timeout=60)
-
-
-def _run_service_in_process(config):
-    """The real service in a thread of this process; returns (service, thread)."""
-    from pipeline.index import Index
-    from pipeline.service.daemon import Service
-
-    service = Service(config, Index(config.index_path, model="hash"))
-    runner = threading.Thread(target=service.run, kwargs={"install_signals": False}, daemon=True)
-    runner.start()
-    return service, runner
+    write(tmp_path / "share" / "a.md", "# A\n\nThe seat clamp takes 6 Nm.\n")
+    sources = [{"name": "share", "path": str(tmp_path / "share")}]
+    with in_process(tmp_path, sources, first_commit=False) as s:
+        wait_for("/healthz to say 503", lambda: s.get("/healthz")[0] == 503, START_DEADLINE)
+        assert not s.service.healthy()
 
 
 def test_scheduled_scans_and_the_reconcile_fire_on_their_own(tmp_path):
     # Intervals shortened to seconds; nothing but the scheduler asks for these syncs.
-    from pipeline.config import parse_config
-
     office = tmp_path / "office"
     write(office / "a.md", "# A\n\nThe seat clamp takes 6 Nm.\n")
-    config = parse_config(
-        {
-            "index": {"path": str(tmp_path / "ix"), "model": "hash"},
-            "server": {"listen": "127.0.0.1:0"},
-            "service": {"reconcile_every": "2s"},
-            "source": [{"name": "office", "kind": "polled", "path": str(office), "every": "1s"}],
-        },
-        tmp_path / "upwell.toml",
-    )
-    service, runner = _run_service_in_process(config)
-    try:
-        deadline = time.monotonic() + START_DEADLINE
-
-        def triggers() -> list[str]:
-            if not service.index.exists:
-                return []
-            return [c.trigger for c in service.index.history()]
-
-        while "start" not in triggers() and time.monotonic() < deadline:
-            time.sleep(0.1)
+    sources = [{"name": "office", "kind": "polled", "path": str(office), "every": "1s"}]
+    with in_process(tmp_path, sources, service={"reconcile_every": "2s"}) as s:
         write(office / "b.md", "# B\n\nA new note about bottle cages.\n")
-        while not (set(triggers()) & {"schedule", "reconcile"}) and time.monotonic() < deadline:
-            time.sleep(0.1)
-        assert set(triggers()) & {"schedule", "reconcile"}, triggers()
-        docs = service.index.store().documents_of_source("office")
-        assert {d["path"] for d in docs.values()} == {"a.md", "b.md"}
-    finally:
-        service.stop_event.set()
-        runner.join(timeout=60)
+
+        def paths() -> set[str]:
+            s.index.store().refresh()
+            return {d["path"] for d in s.index.store().documents_of_source("office").values()}
+
+        wait_for("a scheduled sync to pick up b.md", lambda: "b.md" in paths(), START_DEADLINE)
+        # A polled source has no watcher: only the schedule or the reconcile can have synced it.
+        assert s.index.history()[0].trigger in ("schedule", "reconcile")
 
 
 def test_the_nightly_maintenance_job_runs_when_its_time_comes(tmp_path):
     # Its clock is moved, not waited for: the job's next run is set to now.
     from datetime import datetime
 
-    from pipeline.config import parse_config
+    write(tmp_path / "share" / "a.md", "# A\n\nThe seat clamp takes 6 Nm.\n")
+    with in_process(tmp_path, [{"name": "share", "path": str(tmp_path / "share")}]) as s:
 
-    share = tmp_path / "share"
-    write(share / "a.md", "# A\n\nThe seat clamp takes 6 Nm.\n")
-    config = parse_config(
-        {
-            "index": {"path": str(tmp_path / "ix"), "model": "hash"},
-            "server": {"listen": "127.0.0.1:0"},
-            "source": [{"name": "share", "path": str(share)}],
-        },
-        tmp_path / "upwell.toml",
-    )
-    service, runner = _run_service_in_process(config)
-    try:
-        deadline = time.monotonic() + START_DEADLINE
-        while not service.index.exists or not service.index.history():
-            assert time.monotonic() < deadline, "the first sync never committed"
-            time.sleep(0.1)
-        settings = service.index.store().settings
-        assert "maintained_chunks_version" not in settings()
-        job = service._scheduler.get_job("maintenance")
+        def maintained() -> bool:
+            s.index.store().refresh()
+            return "maintained_chunks_version" in s.index.store().settings()
+
+        assert not maintained()
+        job = s.service._scheduler.get_job("maintenance")
         assert "hour='3', minute='30'" in str(job.trigger)  # 03:30, the default
         job.modify(next_run_time=datetime.now(job.next_run_time.tzinfo))
-        while "maintained_chunks_version" not in settings():
-            assert time.monotonic() < deadline, "maintenance never ran"
-            time.sleep(0.1)
-            service.index.store().refresh()
-    finally:
-        service.stop_event.set()
-        runner.join(timeout=60)
+        wait_for("maintenance to run", maintained, START_DEADLINE)
 
 
 def test_an_unmounted_share_removes_nothing_says_why_and_recovers(tmp_path):
-    from pipeline.config import parse_config
-
     share = tmp_path / "share"
     write(share / "a.md", "# A\n\nThe seat clamp takes 6 Nm.\n")
     write(share / "b.md", "# B\n\nBottle cage bolts are M5.\n")
-    config = parse_config(
-        {
-            "index": {"path": str(tmp_path / "ix"), "model": "hash"},
-            "server": {"listen": "127.0.0.1:0"},
-            "service": {"reconcile_every": "1s"},
-            "source": [{"name": "share", "path": str(share)}],
-        },
-        tmp_path / "upwell.toml",
-    )
-    service, runner = _run_service_in_process(config)
-    try:
-        deadline = time.monotonic() + START_DEADLINE
-        while not service.index.exists or not service.index.history():
-            assert time.monotonic() < deadline, "the first sync never committed"
-            time.sleep(0.1)
-        port = service._http.server_address[1]
-
-        def get(path: str) -> dict:
-            with urllib.request.urlopen(f"http://127.0.0.1:{port}{path}", timeout=10) as r:
-                return json.loads(r.read())
-
+    sources = [{"name": "share", "path": str(share)}]
+    with in_process(tmp_path, sources, service={"reconcile_every": "1s"}) as s:
         # The share goes away, as an unmounted network share does.
         share.rename(tmp_path / "share-unmounted")
-        while "share" not in get("/healthz").get("sources_failing", {}):
-            assert time.monotonic() < deadline, "the missing share was never reported"
-            time.sleep(0.2)
-        health = get("/healthz")
+        wait_for("the missing share to be reported", lambda: "share" in s.failing(), 60)
+        health = s.json("/healthz")
         assert health["ok"] is True and "share" in health["sources_failing"]["share"]
-        status = get("/status")
+        status = s.json("/status")
         (source,) = status["sources"]
         assert source["documents"] == 2 and "error" in source  # nothing removed, and why
-        assert status["totals"]["documents"] == 2
         # It comes back: the error clears by itself and nothing was lost.
         (tmp_path / "share-unmounted").rename(share)
-        while get("/healthz").get("sources_failing"):
-            assert time.monotonic() < deadline, "the service never recovered"
-            time.sleep(0.2)
-        assert get("/status")["totals"]["documents"] == 2
+        wait_for("the service to recover", lambda: not s.failing(), 60)
+        assert s.json("/status")["totals"]["documents"] == 2
         # The mount point stays but is empty: removing every document needs confirmation,
         # which a service never gives itself. Nothing is removed, and /healthz says why.
         for name in ("a.md", "b.md"):
             (share / name).rename(tmp_path / name)
-        while "share" not in get("/healthz").get("sources_failing", {}):
-            assert time.monotonic() < deadline, "the emptied share was never reported"
-            time.sleep(0.2)
-        assert "not synced" in get("/healthz")["sources_failing"]["share"]
-        assert get("/status")["totals"]["documents"] == 2
+        wait_for("the emptied share to be reported", lambda: "share" in s.failing(), 60)
+        assert "not synced" in s.failing()["share"]
+        assert s.json("/status")["totals"]["documents"] == 2
         for name in ("a.md", "b.md"):
             (tmp_path / name).rename(share / name)
-        while get("/healthz").get("sources_failing"):
-            assert time.monotonic() < deadline, "the service never recovered"
-            time.sleep(0.2)
-    finally:
-        service.stop_event.set()
-        runner.join(timeout=60)
+        wait_for("the service to recover", lambda: not s.failing(), 60)
 
 
 def test_an_unreachable_web_source_removes_nothing_is_retried_on_schedule_and_clears(tmp_path):
-    from pipeline.config import parse_config
     from tests.test_connector_http import PAGES, Site
 
     site = Site(PAGES)
-    config = parse_config(
+    sources = [
         {
-            "index": {"path": str(tmp_path / "ix"), "model": "hash"},
-            "server": {"listen": "127.0.0.1:0"},
-            "service": {"reconcile_every": "1h"},
-            "source": [
-                {
-                    "name": "web",
-                    "kind": "http",
-                    "urls": [site.url(p) for p in PAGES],
-                    "every": "1s",
-                    "retries": 0,
-                    "timeout": "2s",
-                }
-            ],
-        },
-        tmp_path / "upwell.toml",
-    )
-    service, runner = _run_service_in_process(config)
+            "name": "web",
+            "kind": "http",
+            "urls": [site.url(p) for p in PAGES],
+            "every": "1s",
+            "retries": 0,
+            "timeout": "2s",
+        }
+    ]
     try:
-        deadline = time.monotonic() + START_DEADLINE
-        while not service.index.exists or not service.index.history():
-            assert time.monotonic() < deadline, "the first sync never committed"
-            time.sleep(0.1)
-        port = service._http.server_address[1]
-
-        def get(path: str) -> dict:
-            with urllib.request.urlopen(f"http://127.0.0.1:{port}{path}", timeout=10) as r:
-                return json.loads(r.read())
-
-        site.stop()  # connection refused from now on
-        while "web" not in get("/healthz").get("sources_failing", {}):
-            assert time.monotonic() < deadline, "the unreachable site was never reported"
-            time.sleep(0.2)
-        (source,) = get("/status")["sources"]
-        assert "connection refused" in source["error"]["reason"]
-        assert source["documents"] == len(PAGES)  # nothing removed
-        site.restart()
-        site.reset_log()
-        # The schedule asks again by itself; once the site answers, the error clears.
-        while get("/healthz").get("sources_failing"):
-            assert time.monotonic() < deadline, "the schedule never retried"
-            time.sleep(0.2)
-        assert site.statuses()  # asked again, with no one telling it to
-        assert get("/status")["totals"]["documents"] == len(PAGES)
+        with in_process(tmp_path, sources, service={"reconcile_every": "1h"}) as s:
+            site.stop()  # connection refused from now on
+            wait_for("the unreachable site to be reported", lambda: "web" in s.failing(), 60)
+            (source,) = s.json("/status")["sources"]
+            assert "connection refused" in source["error"]["reason"]
+            assert source["documents"] == len(PAGES)  # nothing removed
+            site.restart()
+            site.reset_log()
+            # The schedule asks again by itself; once the site answers, the error clears.
+            wait_for("the schedule to retry and clear", lambda: not s.failing(), 60)
+            assert site.statuses()  # asked again, with no one telling it to
+            assert s.json("/status")["totals"]["documents"] == len(PAGES)
     finally:
-        service.stop_event.set()
-        runner.join(timeout=60)
         with contextlib.suppress(Exception):
             site.stop()
 
@@ -821,26 +743,13 @@ def test_an_unreachable_web_source_removes_nothing_is_retried_on_schedule_and_cl
 def test_a_full_disk_during_a_commit_loses_nothing_is_reported_and_passes(tmp_path, monkeypatch):
     import errno
 
-    from pipeline.config import parse_config
     from pipeline.store.tables import Store
 
     office = tmp_path / "office"
     write(office / "a.md", "# A\n\nThe seat clamp takes 6 Nm.\n")
-    config = parse_config(
-        {
-            "index": {"path": str(tmp_path / "ix"), "model": "hash"},
-            "server": {"listen": "127.0.0.1:0"},
-            "source": [{"name": "office", "kind": "polled", "path": str(office), "every": "1s"}],
-        },
-        tmp_path / "upwell.toml",
-    )
-    service, runner = _run_service_in_process(config)
-    try:
-        deadline = time.monotonic() + START_DEADLINE
-        while not service.index.exists or not service.index.history():
-            assert time.monotonic() < deadline, "the first sync never committed"
-            time.sleep(0.1)
-        before = service.index.history()[0].id
+    sources = [{"name": "office", "kind": "polled", "path": str(office), "every": "1s"}]
+    with in_process(tmp_path, sources) as s:
+        before = s.index.history()[0].id
         original = Store.replace_chunks
 
         def disk_full(self, *args, **kwargs):
@@ -848,23 +757,11 @@ def test_a_full_disk_during_a_commit_loses_nothing_is_reported_and_passes(tmp_pa
 
         monkeypatch.setattr(Store, "replace_chunks", disk_full)  # the chunks write hits ENOSPC
         write(office / "b.md", "# B\n\nBottle cage bolts are M5.\n")
-
-        def failing() -> dict:
-            service.index.store().refresh()
-            return service.index.store().settings().get("source_errors") or {}
-
-        while "office" not in failing():
-            assert time.monotonic() < deadline, "the full disk was never reported"
-            time.sleep(0.2)
-        assert "disk is full" in failing()["office"]["reason"]
-        assert service.index.history()[0].id == before  # still at the previous version
-        assert service.healthy()  # the service carries on
+        wait_for("the full disk to be reported", lambda: "office" in s.failing(), 60)
+        assert "disk is full" in s.failing()["office"]
+        assert s.index.history()[0].id == before  # still at the previous version
+        assert s.service.healthy()  # the service carries on
         monkeypatch.setattr(Store, "replace_chunks", original)  # space is back
-        while failing():
-            assert time.monotonic() < deadline, "the sync never went through once space returned"
-            time.sleep(0.2)
-        docs = service.index.store().documents_of_source("office")
+        wait_for("the sync to go through once space returned", lambda: not s.failing(), 60)
+        docs = s.index.store().documents_of_source("office")
         assert {d["path"] for d in docs.values()} == {"a.md", "b.md"}
-    finally:
-        service.stop_event.set()
-        runner.join(timeout=60)

@@ -39,6 +39,8 @@ class Service(Protocol):
 
     def queue_depth(self) -> int: ...
 
+    def failing_sources(self) -> dict[str, str]: ...
+
 
 log = logging.getLogger("upwell.http")
 MAX_K = 100
@@ -67,16 +69,6 @@ class _Reader:
         with self._lock:
             self.index.store().refresh()
             return self.index.status()
-
-    def failing_sources(self) -> dict[str, str]:
-        """source -> why its last sync failed, for the sources failing now; {} without an index."""
-        with self._lock:
-            if not self.index.exists:
-                return {}
-            store = self.index.store()
-            store.refresh()
-            errors = store.settings().get("source_errors") or {}
-            return {name: e["reason"] for name, e in sorted(errors.items())}
 
     def search(self, query: str, k: int, **options: Any) -> list[Hit]:
         with self._lock:
@@ -154,7 +146,7 @@ class _Handler(BaseHTTPRequestHandler):
         data: dict[str, Any] = {"ok": ok}
         # The service is alive, but say which sources cannot be synced and why (an unmounted
         # share, a server that does not answer): their documents stay as they were.
-        failing = self.server.reader.failing_sources()
+        failing = self.server.service.failing_sources()
         if failing:
             data["sources_failing"] = failing
         self._send_json(200 if ok else 503, data)

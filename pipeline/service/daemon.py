@@ -66,6 +66,7 @@ class Service:
         self._settler: threading.Thread | None = None
         self._http: Any = None
         self.busy = threading.Event()  # set while the writer is inside a sync
+        self._failing: dict[str, str] = {}  # source -> why its last sync failed
         self.index_paused = threading.Event()  # the last sync was refused with SyncPaused
         self.started_at = time.time()
 
@@ -331,15 +332,15 @@ class Service:
             self.index_paused.set()
             return None
         except ConfirmationRequired as exc:
+            # An emptied share (a mount point left without its mount) lands here: the status
+            # records it too, since the sync itself could not.
             self._source_failed(
-                source.name, "confirmation", f"source {source.name!r} not synced", exc
+                source.name,
+                "confirmation",
+                f"source {source.name!r} not synced",
+                exc,
+                record=f"not synced: {exc}",
             )
-            # An emptied share (a mount point left without its mount) lands here: say so in
-            # /status and /healthz until a sync of it succeeds.
-            try:
-                self.index.record_source_error(source.name, f"not synced: {exc}")
-            except UpwellError:
-                pass
             return None
         except SourceError as exc:
             self._source_failed(source.name, "source_unreachable", None, exc)
@@ -352,13 +353,13 @@ class Service:
                 # The batch failed whole (a commit lands entirely or not at all): the index is
                 # at its previous version. Say so where people look, and go on; the next event
                 # or scan retries, and recovery cleans up what the failed batch half wrote.
-                self._source_failed(source.name, "disk_full", f"source {source.name!r}", exc)
-                try:
-                    self.index.record_source_error(
-                        source.name, f"not synced, the disk is full: {exc}"
-                    )
-                except (OSError, UpwellError):
-                    pass  # the settings cannot be written either; the log line stands
+                self._source_failed(
+                    source.name,
+                    "disk_full",
+                    f"source {source.name!r}",
+                    exc,
+                    record=f"not synced, the disk is full: {exc}",
+                )
                 return None
             self.metrics.record_failure("internal")
             log.exception(
@@ -367,6 +368,7 @@ class Service:
             )
             return None
         self.index_paused.clear()
+        self._failing.pop(source.name, None)
         seconds = time.monotonic() - started
         report = result.as_dict()
         self.metrics.record_sync(report, seconds)
@@ -378,14 +380,32 @@ class Service:
         return report
 
     def _source_failed(
-        self, source: str, reason_class: str, prefix: str | None, exc: Exception
+        self,
+        source: str,
+        reason_class: str,
+        prefix: str | None,
+        exc: Exception,
+        *,
+        record: str | None = None,
     ) -> None:
-        """Count a failed sync of a whole source and log one line for it."""
+        """Count a failed sync of a whole source, log one line for it, and keep the reason for
+        /healthz until the source syncs again. ``record``: also write it to the index's
+        status, for a failure the sync itself did not record there."""
         self.metrics.record_failure(reason_class)
         log.error(
             f"{prefix}: {exc}" if prefix else str(exc),
             extra={"fields": {"event": "failure", "source": source, "reason": str(exc)}},
         )
+        self._failing[source] = record or str(exc)
+        if record is not None:
+            try:
+                self.index.record_source_error(source, record)
+            except (OSError, UpwellError):
+                pass  # a full disk may refuse this write too; the log line stands
+
+    def failing_sources(self) -> dict[str, str]:
+        """Source -> why its last sync failed, for the sources failing now."""
+        return dict(sorted(self._failing.items()))
 
     def _log_report(self, source: str, trigger: str, result: SyncReport, seconds: float) -> None:
         """A line per commit of the sync (logged when the sync returns), a line per failure."""
