@@ -20,6 +20,7 @@ It writes the corpus twice into temporary folders and checks that:
 
 Exits with status 1 and lists the problems if anything fails.
 """
+
 from __future__ import annotations
 
 import io
@@ -42,20 +43,50 @@ MIN_DOCS_TOTAL = 44
 MIN_QUESTIONS = 64
 MIN_IDENTIFIER = 18
 MIN_PER_FORMAT = 6
-ANCHOR_FOR = {"pdf": "page", "docx": "heading", "md": "heading", "html": "heading",
-              "vtt": "time", "srt": "time", "txt": None}
-WORDS_LOW, WORDS_HIGH = 250, 1800          # "roughly 300 to 1500 words"
+ANCHOR_FOR = {
+    "pdf": "page",
+    "docx": "heading",
+    "md": "heading",
+    "html": "heading",
+    "vtt": "time",
+    "srt": "time",
+    "txt": None,
+}
+WORDS_LOW, WORDS_HIGH = 250, 1800  # "roughly 300 to 1500 words"
 PDF_PAGES = (3, 6)
 TRANSCRIPT_SECONDS = (120, 300)
-COPY_RUN = 6                               # consecutive words a paraphrase may not share
+COPY_RUN = 6  # consecutive words a paraphrase may not share
 
 _CODE = re.compile(r"\b[A-Z][A-Z0-9]*(?:[-.][A-Z0-9]+)+\b")
 _DATE = re.compile(r"\b\d{4}-\d{2}-\d{2}\b")
 _NAME = re.compile(r"\b[A-Z][a-z]+(?:\s+(?:&\s+)?(?:[A-Z][a-z]+|[A-Z]\b|\d+\b))+")
-_QUESTION_WORDS = {"What", "Which", "Who", "Whom", "When", "Where", "Why", "How", "Is", "Are",
-                   "Does", "Do", "Did", "Can", "Could", "Should", "Will", "Would", "My", "The", "I"}
-_TIMING = re.compile(r"^(\d{2,}):(\d{2}):(\d{2})([.,])(\d{3}) --> "
-                     r"(\d{2,}):(\d{2}):(\d{2})([.,])(\d{3})")
+_QUESTION_WORDS = {
+    "What",
+    "Which",
+    "Who",
+    "Whom",
+    "When",
+    "Where",
+    "Why",
+    "How",
+    "Is",
+    "Are",
+    "Does",
+    "Do",
+    "Did",
+    "Can",
+    "Could",
+    "Should",
+    "Will",
+    "Would",
+    "My",
+    "The",
+    "I",
+}
+_TIMING = re.compile(
+    r"^(\d{2,}):(\d{2}):(\d{2})([.,])(\d{3}) --> "
+    r"(\d{2,}):(\d{2}):(\d{2})([.,])(\d{3})"
+)
 _SPAN = re.compile(r"^(\d{2}):(\d{2}):(\d{2})-(\d{2}):(\d{2}):(\d{2})$")
 
 
@@ -80,6 +111,7 @@ def identifier_tokens(text: str) -> list[str]:
 
 
 # ---------------------------------------------------------------------------- document readers
+
 
 class Doc:
     """Text, headings, sections, pages and cues of one corpus file."""
@@ -107,6 +139,7 @@ class Doc:
 
     def _read_pdf(self) -> None:
         from pypdf import PdfReader
+
         reader = PdfReader(io.BytesIO(self.path.read_bytes()))
         self.pages = [page.extract_text() or "" for page in reader.pages]
         self.text = "\n".join(self.pages)
@@ -115,9 +148,10 @@ class Doc:
         import docx
         from docx.table import Table
         from docx.text.paragraph import Paragraph
+
         document = docx.Document(str(self.path))
         items, styles = [], Counter()
-        for child in document.element.body.iterchildren():   # body order keeps tables in place
+        for child in document.element.body.iterchildren():  # body order keeps tables in place
             tag = child.tag.rsplit("}", 1)[-1]
             if tag == "p":
                 para = Paragraph(child, document)
@@ -151,6 +185,7 @@ class Doc:
 
     def _read_html(self) -> None:
         import lxml.html
+
         root = lxml.html.fromstring(self.path.read_bytes())
         items = []
         for el in root.iter():
@@ -194,7 +229,7 @@ class Doc:
             end = g[5] * 3600 + g[6] * 60 + g[7] + g[9] / 1000
             if end <= start or (self.cues and start < self.cues[-1][1]):
                 self.problems.append(f"cue timing out of order at {lines[timing_at]!r}")
-            text = re.sub(r"<[^>]+>", "", " ".join(lines[timing_at + 1:]))
+            text = re.sub(r"<[^>]+>", "", " ".join(lines[timing_at + 1 :]))
             self.cues.append((start, end, text))
         if not self.cues:
             self.problems.append("transcript has no cues")
@@ -210,6 +245,7 @@ class Doc:
 
 
 # ---------------------------------------------------------------------------- checks
+
 
 def check_corpus(root: Path, paths: list[Path], problems: list[str]) -> dict[str, Doc]:
     docs: dict[str, Doc] = {}
@@ -240,8 +276,9 @@ def check_corpus(root: Path, paths: list[Path], problems: list[str]) -> dict[str
     return docs
 
 
-def check_questions(questions: list[dict], docs: dict[str, Doc], problems: list[str],
-                    notes: list[str]) -> None:
+def check_questions(
+    questions: list[dict], docs: dict[str, Doc], problems: list[str], notes: list[str]
+) -> None:
     seen = set()
     for q in questions:
         qid = q.get("id", "?")
@@ -266,8 +303,9 @@ def check_questions(questions: list[dict], docs: dict[str, Doc], problems: list[
         anchors = [k for k in ("page", "heading", "time") if k in q]
         wanted = ANCHOR_FOR[doc.fmt]
         if (wanted is None and anchors) or (wanted is not None and anchors != [wanted]):
-            problems.append(f"{where}: anchors {anchors} but a .{doc.fmt} file needs "
-                            f"{wanted or 'none'}")
+            problems.append(
+                f"{where}: anchors {anchors} but a .{doc.fmt} file needs {wanted or 'none'}"
+            )
             continue
         section = doc.text
         if wanted == "page":
@@ -281,8 +319,10 @@ def check_questions(questions: list[dict], docs: dict[str, Doc], problems: list[
         elif wanted == "heading":
             count = doc.headings.count(q["heading"])
             if count != 1:
-                problems.append(f"{where}: heading {q['heading']!r} occurs {count} times as a "
-                                f"heading in {q['file']}")
+                problems.append(
+                    f"{where}: heading {q['heading']!r} occurs {count} times as a "
+                    f"heading in {q['file']}"
+                )
                 continue
             section = doc.sections[q["heading"]]
             if not section.strip():
@@ -296,12 +336,18 @@ def check_questions(questions: list[dict], docs: dict[str, Doc], problems: list[
             start, end = g[0] * 3600 + g[1] * 60 + g[2], g[3] * 3600 + g[4] * 60 + g[5]
             starts = [math.floor(c[0]) for c in doc.cues]
             ends = [math.ceil(c[1]) for c in doc.cues]
-            if start >= end or start not in starts or end not in ends \
-                    or ends.index(end) < starts.index(start):
-                problems.append(f"{where}: time {q['time']} does not run from a cue start to a "
-                                f"cue end in {q['file']}")
+            if (
+                start >= end
+                or start not in starts
+                or end not in ends
+                or ends.index(end) < starts.index(start)
+            ):
+                problems.append(
+                    f"{where}: time {q['time']} does not run from a cue start to a "
+                    f"cue end in {q['file']}"
+                )
                 continue
-            section = " ".join(c[2] for c in doc.cues[starts.index(start):ends.index(end) + 1])
+            section = " ".join(c[2] for c in doc.cues[starts.index(start) : ends.index(end) + 1])
         file_text = norm(doc.text if doc.fmt not in ("vtt", "srt") else doc.spoken_text())
         if q["kind"] == "identifier":
             tokens = identifier_tokens(q["text"])
@@ -311,14 +357,18 @@ def check_questions(questions: list[dict], docs: dict[str, Doc], problems: list[
                 if norm(token) not in file_text:
                     problems.append(f"{where}: identifier {token!r} not found in {q['file']}")
             if tokens and not any(norm(t) in norm(section) for t in tokens):
-                notes.append(f"{qid}: identifier {tokens} is in the file but not in the anchored "
-                             f"part (fine when the answer does not repeat it)")
+                notes.append(
+                    f"{qid}: identifier {tokens} is in the file but not in the anchored "
+                    f"part (fine when the answer does not repeat it)"
+                )
         if q["kind"] == "paraphrase":
             qw, dw = words(q["text"]), words(file_text)
-            shingles = {tuple(dw[i:i + COPY_RUN]) for i in range(len(dw) - COPY_RUN + 1)}
+            shingles = {tuple(dw[i : i + COPY_RUN]) for i in range(len(dw) - COPY_RUN + 1)}
             for i in range(len(qw) - COPY_RUN + 1):
-                if tuple(qw[i:i + COPY_RUN]) in shingles:
-                    problems.append(f"{where}: paraphrase copies {' '.join(qw[i:i + COPY_RUN])!r}")
+                if tuple(qw[i : i + COPY_RUN]) in shingles:
+                    problems.append(
+                        f"{where}: paraphrase copies {' '.join(qw[i : i + COPY_RUN])!r}"
+                    )
                     break
     kinds = Counter(q.get("kind") for q in questions)
     if len(questions) < MIN_QUESTIONS:
