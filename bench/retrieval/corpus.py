@@ -646,42 +646,53 @@ _HALDEN_MANUAL = {
                     (
                         "E-05",
                         "No speed signal",
-                        "Magnet MCW-HE-MAG-01 aligned with sensor, gap 2 to 4 mm; sensor cable at the "
+                        "Magnet MCW-HE-MAG-01 aligned with sensor, gap 2 to 4 mm; sensor cable at "
+                        "the "
                         "left chainstay; replace sensor if the system test still fails.",
                     ),
                     (
                         "E-11",
                         "Battery voltage below cut-off",
-                        "Cut-off is 30.0 V under load. Measure at rest: a charged pack reads over 40 V. "
+                        "Cut-off is 30.0 V under load. Measure at rest: a charged pack reads over "
+                        "40 V. "
                         "If a charged pack shows E-11 on a climb, run the capacity test on page 4.",
                     ),
                     (
                         "E-17",
                         "Torque sensor signal lost",
-                        "Read the log count. Connector with green collar under the motor cover fully "
-                        "clicked home; cable chafe at the chainstay clip, fit boot MCW-HE-BOOT-02 if "
-                        "missing; sensor resistance 4.7 kilohm between pins 2 and 3. Firmware 2.4 filters "
+                        "Read the log count. Connector with green collar under the motor cover "
+                        "fully "
+                        "clicked home; cable chafe at the chainstay clip, fit boot MCW-HE-BOOT-02 "
+                        "if "
+                        "missing; sensor resistance 4.7 kilohm between pins 2 and 3. Firmware 2.4 "
+                        "filters "
                         "short drop-outs (ECN-0163).",
                     ),
                     (
                         "E-23",
                         "Motor phase or hall sensor fault",
-                        "Motor cable quick connector at the right chainstay; phase-to-phase resistance "
-                        "0.2 to 0.4 ohm, all three equal; hall test in the service tool. Do not keep "
+                        "Motor cable quick connector at the right chainstay; phase-to-phase "
+                        "resistance "
+                        "0.2 to 0.4 ohm, all three equal; hall test in the service tool. Do not "
+                        "keep "
                         "resetting an E-23.",
                     ),
                     (
                         "E-31",
                         "Controller over-temperature",
-                        "Power is reduced from 75 C and cut at 85 C. Usually a heavy load on a long climb "
-                        "in high assist. Check the controller heat pad is in place if it recurs on short "
+                        "Power is reduced from 75 C and cut at 85 C. Usually a heavy load on a "
+                        "long climb "
+                        "in high assist. Check the controller heat pad is in place if it recurs "
+                        "on short "
                         "rides.",
                     ),
                     (
                         "E-42",
                         "Display to controller communication lost",
-                        "Clean display mount contacts; check the harness where it enters the head tube; "
-                        "data line resistance 60 ohm with the battery removed; swap display to test.",
+                        "Clean display mount contacts; check the harness where it enters the head "
+                        "tube; "
+                        "data line resistance 60 ohm with the battery removed; swap display to "
+                        "test.",
                     ),
                 ],
             ),
@@ -1629,12 +1640,15 @@ _HB2_FITTING = {
         (
             "steps",
             [
-                "Slide the levers onto the bar inboard of the grips, leaving a 5 mm gap to the grip.",
-                "Set the lever angle so that the blades continue the line of the rider's forearm when "
+                "Slide the levers onto the bar inboard of the grips, leaving a 5 mm gap to the "
+                "grip.",
+                "Set the lever angle so that the blades continue the line of the rider's forearm "
+                "when "
                 "seated, roughly 30 degrees below the horizontal on a flat bar.",
                 "Tighten the lever clamp bolts to 3 Nm. The levers must still turn on the bar in a "
                 "fall.",
-                "Check the lot number on the underside of each lever. Levers from lots L2411 to L2502 "
+                "Check the lot number on the underside of each lever. Levers from lots L2411 to "
+                "L2502 "
                 "must carry the green SN-2025-03 dot; send any without it back to stores.",
             ],
         ),
@@ -1643,9 +1657,12 @@ _HB2_FITTING = {
             "steps",
             [
                 "Route the front hose down the left side of the fork to the front caliper.",
-                "Route the rear hose along the frame following the model drawing: top tube on the Tern "
-                "700, inside the down tube on the Halden E, under the down tube on the Cobble Plus.",
-                "Turn the bar fully to each side. No hose may pull tight or press on the head tube.",
+                "Route the rear hose along the frame following the model drawing: top tube on the "
+                "Tern "
+                "700, inside the down tube on the Halden E, under the down tube on the Cobble "
+                "Plus.",
+                "Turn the bar fully to each side. No hose may pull tight or press on the head "
+                "tube.",
                 "Fix the hoses in every clip on the drawing; do not add extra cable ties.",
             ],
         ),
@@ -1654,9 +1671,11 @@ _HB2_FITTING = {
             "steps",
             [
                 "Remove the transport spacer and check the pads are clean.",
-                "Fit each caliper with two new pre-coated bolts MCW-BLT-M6-18TL. Never refit a bolt "
+                "Fit each caliper with two new pre-coated bolts MCW-BLT-M6-18TL. Never refit a "
+                "bolt "
                 "that has been screwed in before.",
-                "Centre the caliper by holding the lever firmly while you snug the bolts, then tighten "
+                "Centre the caliper by holding the lever firmly while you snug the bolts, then "
+                "tighten "
                 "them to 8 Nm, alternating between the two bolts.",
                 "Spin the wheel and check for rub with a white card behind the rotor.",
             ],
@@ -1666,10 +1685,13 @@ _HB2_FITTING = {
             "steps",
             [
                 "Find the finished hose length in the table below for the model and size.",
-                "Undo the hose nut at the lever, measure from the caliper end and cut square with the "
+                "Undo the hose nut at the lever, measure from the caliper end and cut square with "
+                "the "
                 "hose cutter.",
-                "Fit a new insert and olive, reconnect at the lever and tighten the hose nut to 5 Nm.",
-                "Do a short top-up bleed at the lever as in the service manual, then check the bite "
+                "Fit a new insert and olive, reconnect at the lever and tighten the hose nut to 5 "
+                "Nm.",
+                "Do a short top-up bleed at the lever as in the service manual, then check the "
+                "bite "
                 "point.",
             ],
         ),
@@ -1753,13 +1775,17 @@ _TRUING = {
         (
             "steps",
             [
-                "Remove the tyre and tube, or the tubeless tyre, so that the rim can be seen all the "
+                "Remove the tyre and tube, or the tubeless tyre, so that the rim can be seen all "
+                "the "
                 "way round.",
-                "Check the hub bearings for play and roughness. Bearings are serviced before the wheel "
+                "Check the hub bearings for play and roughness. Bearings are serviced before the "
+                "wheel "
                 "is trued.",
-                "Check the rim for cracks at every spoke hole and for dents in the braking surface or "
+                "Check the rim for cracks at every spoke hole and for dents in the braking "
+                "surface or "
                 "bead seat.",
-                "Check every spoke for bends, broken threads or damaged nipples, and mark any to be "
+                "Check every spoke for bends, broken threads or damaged nipples, and mark any to "
+                "be "
                 "replaced.",
                 "Oil each nipple where it enters the rim on wheels more than two years old.",
             ],
@@ -1771,9 +1797,11 @@ _TRUING = {
                 "Set the wheel in the stand and bring the indicator to the rim sidewall.",
                 "Correct lateral runout first, working on the largest error, with no more than a "
                 "quarter turn per nipple at a time.",
-                "Correct radial runout: tighten both sides at a high spot, loosen both sides at a low "
+                "Correct radial runout: tighten both sides at a high spot, loosen both sides at a "
+                "low "
                 "spot.",
-                "Check the dish with the dishing gauge from both sides and correct it by moving the "
+                "Check the dish with the dishing gauge from both sides and correct it by moving "
+                "the "
                 "whole rim.",
                 "Check the tension of every spoke with the tension meter and even out any spoke "
                 "outside the limit.",
@@ -1826,10 +1854,12 @@ _BATTERY = {
                 "Check that each pack arrives in its sealed fire-resistant bag with the dangerous "
                 "goods label and the transport test summary from Sandle & Rook Cells.",
                 "Check the state of charge on the pack's own gauge. It must be between 30 and 50 "
-                "percent: two LEDs lit. Refuse a delivery in which any pack is outside that window.",
+                "percent: two LEDs lit. Refuse a delivery in which any pack is outside that "
+                "window.",
                 "Look for damage to the case, the rail or the contacts. A damaged pack is refused, "
                 "even if the rest of the delivery is accepted.",
-                "Book the packs in with their serial numbers and move them to the battery store the "
+                "Book the packs in with their serial numbers and move them to the battery store "
+                "the "
                 "same day.",
             ],
         ),
@@ -1877,9 +1907,11 @@ _BATTERY = {
         (
             "steps",
             [
-                "Treat a pack as damaged if it has been dropped or crashed, is swollen, smells, has "
+                "Treat a pack as damaged if it has been dropped or crashed, is swollen, smells, "
+                "has "
                 "got wet inside or shows all four LEDs flashing.",
-                "Put it straight into the fire-safe cabinet in bay 5 with a red tag giving the date, "
+                "Put it straight into the fire-safe cabinet in bay 5 with a red tag giving the "
+                "date, "
                 "the serial number and what happened.",
                 "Tell the e-bike bay the same day. Do not open, charge or ship the pack.",
                 "The e-bike bay decides whether the pack goes back to Sandle & Rook Cells for "
@@ -1894,7 +1926,8 @@ _BATTERY = {
                 "Bring the pack to between 20 and 30 percent, one or two LEDs lit.",
                 "Pack it in a fire-resistant bag MCW-HE-FBG-01 inside its own carton, with the "
                 "dangerous goods label on two sides.",
-                "Book it with Larkspur Freight for road transport. Never send a pack by post or parcel "
+                "Book it with Larkspur Freight for road transport. Never send a pack by post or "
+                "parcel "
                 "carrier.",
             ],
         ),
@@ -1997,10 +2030,13 @@ _FINAL_INSPECTION = {
             [
                 "Ride at least one lap of the yard, about 400 metres, and bed in the brakes on the "
                 "way.",
-                "Brake hard with each lever alone and check that the bike stops in a straight line.",
-                "Change through all the gears under load, standing on the pedals for the lowest three.",
+                "Brake hard with each lever alone and check that the bike stops in a straight "
+                "line.",
+                "Change through all the gears under load, standing on the pedals for the lowest "
+                "three.",
                 "On a Halden E, ride part of a lap in each assist level and try walk assist.",
-                "Listen for creaks and clicks; a bike that makes a noise on the road test fails it.",
+                "Listen for creaks and clicks; a bike that makes a noise on the road test fails "
+                "it.",
             ],
         ),
         ("h2", "Signing off"),
@@ -2076,9 +2112,11 @@ _ECN_0141 = {
         (
             "steps",
             [
-                "Stores collect all plain bolts and threadlock bottles from the assembly stands on the "
+                "Stores collect all plain bolts and threadlock bottles from the assembly stands "
+                "on the "
                 "Friday before the effective date and hold them in quarantine.",
-                "The workshop manager resets every 2 to 10 Nm torque wrench on the lines to 8 Nm and "
+                "The workshop manager resets every 2 to 10 Nm torque wrench on the lines to 8 Nm "
+                "and "
                 "marks it with a yellow tag before the first build on the effective date.",
                 "From the effective date every bike is built with the pre-coated bolts at 8 Nm.",
             ],
@@ -2165,11 +2203,14 @@ _ECN_0152 = {
             "steps",
             [
                 "Clean the rim well and check every spoke hole edge for burrs.",
-                "Start the tape at the valve hole, with the tape's valve hole lined up with the rim's.",
-                "Stretch the tape into the well all the way round, so that it sits tight against both "
+                "Start the tape at the valve hole, with the tape's valve hole lined up with the "
+                "rim's.",
+                "Stretch the tape into the well all the way round, so that it sits tight against "
+                "both "
                 "side walls.",
                 "Check with a fingertip that no spoke hole edge can be felt through the tape.",
-                "Fit the tyre by hand where possible; if you need tyre levers, keep them away from the "
+                "Fit the tyre by hand where possible; if you need tyre levers, keep them away "
+                "from the "
                 "valve area.",
             ],
         ),
@@ -2212,7 +2253,8 @@ _RETURNS_PROCESSING = {
                 "Scan the return number on the parcel. If there is none, look for a packing note "
                 "inside, then search by the customer's name.",
                 "Photograph the parcel before opening if the outside is damaged.",
-                "Open the parcel at the returns bench and check the contents against the return in the "
+                "Open the parcel at the returns bench and check the contents against the return "
+                "in the "
                 "system.",
                 "Grade each item using the table below and enter the grade.",
                 "Move each item to the shelf or area for its grade the same day.",
@@ -2256,10 +2298,12 @@ _RETURNS_PROCESSING = {
             "steps",
             [
                 "Unbox the bike in bay 1 and photograph it from both sides.",
-                "Read the odometer on a Halden E; on other models judge use from the tyres, chain and "
+                "Read the odometer on a Halden E; on other models judge use from the tyres, chain "
+                "and "
                 "brake pads.",
                 "Ask a mechanic to inspect the bike and write the result on a returns job card.",
-                "Apply the 10 percent restocking charge to change-of-mind returns; do not apply it to "
+                "Apply the 10 percent restocking charge to change-of-mind returns; do not apply "
+                "it to "
                 "size exchanges or to returns that were our mistake.",
                 "Bikes that pass go back to stock as ex-return and are sold through the workshop "
                 "counter only.",
