@@ -617,11 +617,16 @@ def in_process(
     try:
         wait_for("the API to listen", lambda: running._http is not None, START_DEADLINE)
         if first_commit:
-            wait_for(
-                "the first sync to commit",
-                lambda: running.index.exists and running.index.history(),
-                START_DEADLINE,
-            )
+
+            def committed() -> bool:
+                # A reader's view is re-read on refresh(); the store may have been opened
+                # between its creation and its first commit.
+                if not running.index.exists:
+                    return False
+                running.index.store().refresh()
+                return bool(running.index.history())
+
+            wait_for("the first sync to commit", committed, START_DEADLINE)
         yield InProcess(running)
     finally:
         running.stop_event.set()
