@@ -150,19 +150,21 @@ class Hit:
 
 
 def _as_document_patterns(
-    patterns: Sequence[str], locations: Mapping[str, str] | None
+    patterns: Sequence[str], locations: Mapping[str, str] | None, cwd: str | None = None
 ) -> list[str]:
     """Each pattern as given, plus, for one that names a place on disk inside a folder source
-    (``/srv/share/hr/complaint-0042.docx``, ``./notices/*.txt``), its ``SOURCE/PATH`` form."""
+    (``/srv/share/hr/complaint-0042.docx``, ``./notices/*.txt``, relative to ``cwd``, default
+    the current folder), its ``SOURCE/PATH`` form."""
     out = list(patterns)
     roots = {
         name: Path(where).resolve()
         for name, where in (locations or {}).items()
         if not is_remote(where) and "://" not in where
     }
+    base = Path(cwd or os.getcwd())
     for pattern in patterns:
-        on_disk = Path(pattern).expanduser()
-        if not (on_disk.is_absolute() or pattern.startswith((".", "~")) or on_disk.exists()):
+        on_disk = base / Path(pattern).expanduser()  # an absolute pattern stays as it is
+        if not (Path(pattern).is_absolute() or pattern.startswith((".", "~")) or on_disk.exists()):
             continue
         absolute = Path(os.path.abspath(on_disk))
         for name, root in roots.items():
@@ -820,18 +822,21 @@ class Index:
         *,
         yes: bool = False,
         confirm: Callable[[str], bool] | None = None,
+        cwd: str | None = None,
     ) -> dict[str, Any]:
         """Forget documents completely: rows, cached vectors, and every old version holding them.
 
         ``patterns`` are globs matched against ``source/path``, ``path`` or the doc id, or
-        paths on disk (absolute, or relative to the current folder) inside a folder source's
-        recorded location, which are mapped to ``source/path``. This rewrites history: earlier
-        rollback points and tags are lost. Asks first unless ``yes``.
+        paths on disk (absolute, or relative to ``cwd``, default the current folder) inside a
+        folder source's recorded location, which are mapped to ``source/path``. This rewrites
+        history: earlier rollback points and tags are lost. Asks first unless ``yes``.
         """
         with self.writing():
             store = self._open_existing_for_writing("erase")
             docs = store.all_documents(["doc_id", "source", "path"])
-            patterns = _as_document_patterns(patterns, store.settings().get("source_locations"))
+            patterns = _as_document_patterns(
+                patterns, store.settings().get("source_locations"), cwd
+            )
             matched = sorted(
                 d["doc_id"]
                 for d in docs

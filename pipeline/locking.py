@@ -42,7 +42,7 @@ def machine_folder(purpose: str) -> Path:
     return Path(cache) / "upwell" / purpose
 
 
-def _lock_files(index_path: str | os.PathLike[str]) -> tuple[Path, Path]:
+def lock_files(index_path: str | os.PathLike[str]) -> tuple[Path, Path]:
     """(lock file, pid file) of an index: in its folder, or keyed by its URI on this machine."""
     if is_remote(index_path):
         key = uri_key(os.fspath(index_path))
@@ -54,7 +54,7 @@ def _lock_files(index_path: str | os.PathLike[str]) -> tuple[Path, Path]:
 
 def holder_pid(index_path: str | os.PathLike[str]) -> int | None:
     try:
-        return int(_lock_files(index_path)[1].read_text().strip())
+        return int(lock_files(index_path)[1].read_text().strip())
     except (OSError, ValueError):
         return None
 
@@ -65,7 +65,7 @@ def writer_lock(index_path: str | os.PathLike[str]) -> Iterator[None]:
 
     For an index on object storage this excludes writers on this machine only (see above).
     """
-    lock_file, pid_file = _lock_files(index_path)
+    lock_file, pid_file = lock_files(index_path)
     lock_file.parent.mkdir(parents=True, exist_ok=True)
     lock = FileLock(str(lock_file), timeout=0)
     try:

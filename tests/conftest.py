@@ -132,3 +132,7 @@ def small_corpus(tmp_path: Path) -> Path:
         "time.\n",
     )
     return root
+
+
+# The real `upwell watch` subprocess, for every module that runs one.
+from tests.support.service import watches  # noqa: E402,F401

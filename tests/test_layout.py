@@ -190,3 +190,21 @@ def test_every_logger_is_under_the_upwell_namespace():
                 assert isinstance(arg, ast.Constant) and str(arg.value).startswith("upwell"), (
                     f"{name}: getLogger must name a logger under 'upwell'"
                 )
+
+
+def test_commands_print_only_to_the_streams_they_are_given():
+    # A write command may run inside the service for a caller at the other end of the control
+    # socket; a bare print() there would land in the service's own stdout.
+    bare = []
+    for path in sorted((ROOT / "pipeline" / "cli").glob("*.py")):
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            if isinstance(node, ast.Call) and getattr(node.func, "id", None) in ("print",):
+                if not any(k.arg == "file" for k in node.keywords):
+                    bare.append(f"{path.name}:{node.lineno}")
+            if isinstance(node, ast.Attribute) and node.attr in ("stdout", "stderr"):
+                if getattr(node.value, "id", None) == "sys" and path.name not in (
+                    "__init__.py",
+                    "common.py",
+                ):
+                    bare.append(f"{path.name}:{node.lineno} sys.{node.attr}")
+    assert bare == []

@@ -14,12 +14,13 @@ from collections.abc import Sequence
 from typing import Any
 
 from pipeline import retrieval
-from pipeline.cli import history_commands, service_commands
+from pipeline.cli import handover, history_commands, service_commands
 from pipeline.cli.common import HelpFormatter, confirm_on_terminal, json_out
 from pipeline.config import CONFIG_ENV, config_path_from, load_config
 from pipeline.errors import EXIT_OK, EXIT_PARTIAL, UpwellError, UsageError
 from pipeline.index import DEFAULT_INDEX, Index, default_index_path
 from pipeline.progress import Progress
+from pipeline.service import control
 
 DESCRIPTION = """\
 upwell keeps a document vector index current. It reads folders of PDF, Word (.docx),
@@ -63,25 +64,29 @@ def _sync_targets(args: argparse.Namespace, index: Index) -> list[Any]:
 
 
 def cmd_sync(args: argparse.Namespace, index: Index) -> int:
-    report = index.sync(_sync_targets(args, index), yes=args.yes, confirm=confirm_on_terminal)
+    report = index.sync(_sync_targets(args, index), yes=args.yes, confirm=args.confirm)
     data = report.as_dict()
     if args.json:
-        json_out(data)
+        json_out(data, args.out)
     else:
         d, c = data["documents"], data["chunks"]
         print(
             f"documents: {d['added']} added, {d['modified']} modified, {d['removed']} removed, "
-            f"{d['moved']} moved, {d['unchanged']} unchanged, {d['failed']} failed"
+            f"{d['moved']} moved, {d['unchanged']} unchanged, {d['failed']} failed",
+            file=args.out,
         )
-        print(f"chunks:    {c['embedded']} embedded, {c['reused']} reused, {c['deleted']} deleted")
+        print(
+            f"chunks:    {c['embedded']} embedded, {c['reused']} reused, {c['deleted']} deleted",
+            file=args.out,
+        )
         if data["commit"]:
             n = len(data["commits"])
             more = f" ({n} commits)" if n > 1 else ""
-            print(f"commit:    {data['commit']} (version {data['version']}){more}")
+            print(f"commit:    {data['commit']} (version {data['version']}){more}", file=args.out)
         else:
-            print(f"commit:    none, nothing changed (version {data['version']})")
+            print(f"commit:    none, nothing changed (version {data['version']})", file=args.out)
         for f in data["failures"]:
-            print(f"failed:    {f['source']}/{f['path']}: {f['reason']}", file=sys.stderr)
+            print(f"failed:    {f['source']}/{f['path']}: {f['reason']}", file=args.err)
     return EXIT_PARTIAL if data["failures"] else EXIT_OK
 
 
@@ -92,16 +97,17 @@ def cmd_remove_source(args: argparse.Namespace, index: Index) -> int:
             f"source {args.name!r} is still in the configuration {config.file}: the next sync "
             "would add it back; remove its [[source]] first"
         )
-    report = index.remove_source(args.name, yes=args.yes, confirm=confirm_on_terminal)
+    report = index.remove_source(args.name, yes=args.yes, confirm=args.confirm)
     data = report.as_dict()
     if args.json:
-        json_out(data)
+        json_out(data, args.out)
     else:
         print(
             f"removed:   source {args.name!r}: {data['documents']['removed']} documents, "
-            f"{data['chunks']['deleted']} chunks"
+            f"{data['chunks']['deleted']} chunks",
+            file=args.out,
         )
-        print(f"commit:    {data['commit']} (version {data['version']})")
+        print(f"commit:    {data['commit']} (version {data['version']})", file=args.out)
     return EXIT_OK
 
 
@@ -126,48 +132,51 @@ def cmd_search(args: argparse.Namespace, index: Index) -> int:
         notes = index.query_notes(args.query)
         if notes:
             data["notes"] = notes
-        json_out(data)
+        json_out(data, args.out)
         return EXIT_OK
     if not hits:
-        print("no results: the index is empty" if not index.exists else "no results")
+        print("no results: the index is empty" if not index.exists else "no results", file=args.out)
     width = 96
-    bold = sys.stdout.isatty() and not os.environ.get("NO_COLOR")
+    bold = args.out.isatty() and not os.environ.get("NO_COLOR")
     for n, h in enumerate(hits, 1):
-        print(f"{n:>2}. {h.score:.3f}  {h.citation()}")
+        print(f"{n:>2}. {h.score:.3f}  {h.citation()}", file=args.out)
         snippet = retrieval.best_snippet(h.text, args.query, args.snippet)
         lines = textwrap.fill(snippet, width - 6)
         if bold:
             lines = retrieval.highlight(lines, args.query)
-        print(textwrap.indent(lines, "      "))
+        print(textwrap.indent(lines, "      "), file=args.out)
     return EXIT_OK
 
 
 def cmd_status(args: argparse.Namespace, index: Index) -> int:
     st = index.status()
     if args.json:
-        json_out(st)
+        json_out(st, args.out)
         return EXIT_OK
     t = st["totals"]
-    print(f"index:     {st['index']} (version {st['version']})")
-    print(f"model:     {st['model']['id']} ({st['model']['dimension']} dimensions)")
+    print(f"index:     {st['index']} (version {st['version']})", file=args.out)
+    print(f"model:     {st['model']['id']} ({st['model']['dimension']} dimensions)", file=args.out)
     print(
         f"totals:    {t['documents']} documents, {t['chunks']} chunks, "
-        f"{t['failed']} failed, {t['commits']} commits"
+        f"{t['failed']} failed, {t['commits']} commits",
+        file=args.out,
     )
     for s in st["sources"]:
         print(
             f"source:    {s['name']}: {s['documents']} documents, {s['chunks']} chunks, "
-            f"{s['failed']} failed"
+            f"{s['failed']} failed",
+            file=args.out,
         )
         if "error" in s:
-            print(f"  error:   {s['error']['reason']} (since {s['error']['since']})")
+            print(f"  error:   {s['error']['reason']} (since {s['error']['since']})", file=args.out)
         for p in s.get("problems", []):
-            print(f"  problem: {p['key']}: {p['problem']} (since {p['since']})")
+            print(f"  problem: {p['key']}: {p['problem']} (since {p['since']})", file=args.out)
     if st.get("pending_erase"):
         pe = st["pending_erase"]
         print(
             f"pending:   an erase of {pe['documents']} documents was interrupted at {pe['since']}; "
-            "the next command that writes finishes it"
+            "the next command that writes finishes it",
+            file=args.out,
         )
     lc = st["last_commit"]
     if lc:
@@ -175,13 +184,14 @@ def cmd_status(args: argparse.Namespace, index: Index) -> int:
         print(
             f"last:      {lc['id']} at {lc['time']} ({lc['trigger']}): {d['added']} added, "
             f"{d['modified']} modified, {d['removed']} removed, {lc['chunks']['embedded']} "
-            "chunks embedded"
+            "chunks embedded",
+            file=args.out,
         )
     for f in st["failures"]:
         kept = "last good version still searchable" if f["last_good_searchable"] else "not indexed"
-        print(f"failed:    {f['source']}/{f['path']}: {f['reason']} ({kept})")
+        print(f"failed:    {f['source']}/{f['path']}: {f['reason']} ({kept})", file=args.out)
     for w in st["warnings"]:
-        print(f"warning:   {w['source']}/{w['path']}: {w['warning']}")
+        print(f"warning:   {w['source']}/{w['path']}: {w['warning']}", file=args.out)
     return EXIT_OK
 
 
@@ -362,7 +372,15 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
-    args = parser.parse_args(argv)
+    words = list(sys.argv[1:] if argv is None else argv)
+    args = parser.parse_args(words)
+    args.parser = parser
+    args.out, args.err, args.confirm, args.cwd = (
+        sys.stdout,
+        sys.stderr,
+        confirm_on_terminal,
+        os.getcwd(),
+    )
     try:
         config_file = config_path_from(args.config)
         # `init` writes the file that --config or $UPWELL_CONFIG may already name
@@ -375,10 +393,16 @@ def main(argv: Sequence[str] | None = None) -> int:
             progress=Progress(enabled=None),
             storage_options=args.config.index_storage_options if args.config else None,
         )
+        if handover.writes(args):
+            with control.connect(index.path) as service:
+                if service is not None:
+                    # `upwell watch` holds the writer lock: it runs the command between batches
+                    ask = confirm_on_terminal if sys.stdin.isatty() else None
+                    return control.hand_over(service, words, out=args.out, err=args.err, ask=ask)
         return int(args.func(args, index))
     except UpwellError as exc:
-        print(f"upwell: error: {exc}", file=sys.stderr)
+        print(f"upwell: error: {exc}", file=args.err)
         return exc.exit_code
     except KeyboardInterrupt:
-        print("upwell: interrupted", file=sys.stderr)
+        print("upwell: interrupted", file=args.err)
         return 130

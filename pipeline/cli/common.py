@@ -2,7 +2,9 @@
 
 Each command module has ``register(sub)``, adding its commands to the ``upwell`` subparsers;
 each command is ``cmd_NAME(args, index) -> exit code`` and calls one ``Index`` method. Exit
-codes are the table in ``pipeline.errors``.
+codes are the table in ``pipeline.errors``. A command prints to ``args.out`` and ``args.err``
+and asks with ``args.confirm``: the terminal's, or, for a command handed to a running service,
+the caller's terminal at the other end of the control socket.
 """
 
 from __future__ import annotations
@@ -11,7 +13,7 @@ import argparse
 import json
 import sys
 import textwrap
-from typing import Any
+from typing import Any, TextIO
 
 
 class HelpFormatter(argparse.RawDescriptionHelpFormatter):
@@ -36,9 +38,10 @@ class HelpFormatter(argparse.RawDescriptionHelpFormatter):
         return "\n\n".join(out)
 
 
-def json_out(data: Any) -> None:
-    json.dump(data, sys.stdout, indent=2, ensure_ascii=False, default=str)
-    sys.stdout.write("\n")
+def json_out(data: Any, out: TextIO | None = None) -> None:
+    out = out or sys.stdout
+    json.dump(data, out, indent=2, ensure_ascii=False, default=str)
+    out.write("\n")
 
 
 def confirm_on_terminal(message: str) -> bool:

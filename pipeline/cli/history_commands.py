@@ -6,7 +6,7 @@ from __future__ import annotations
 import argparse
 from typing import Any
 
-from pipeline.cli.common import HelpFormatter, confirm_on_terminal, json_out
+from pipeline.cli.common import HelpFormatter, json_out
 from pipeline.index import Index
 
 REF_HELP = (
@@ -30,13 +30,14 @@ def cmd_history(args: argparse.Namespace, index: Index) -> int:
         json_out({"commits": [dict(c.as_dict(), tags=tags_by_commit.get(c.id, [])) for c in log]})
         return 0
     if not log:
-        print("no commits yet")
+        print("no commits yet", file=args.out)
     for c in log:
         tags = f"  [{', '.join(tags_by_commit[c.id])}]" if c.id in tags_by_commit else ""
         ch = c.chunks
         print(
             f"{c.id}  v{c.version:<5} {c.time}  {c.trigger:<10} {_counts(c.as_dict())}; "
-            f"{ch['embedded']} embedded, {ch['deleted']} deleted{tags}"
+            f"{ch['embedded']} embedded, {ch['deleted']} deleted{tags}",
+            file=args.out,
         )
     return 0
 
@@ -45,21 +46,22 @@ def cmd_diff(args: argparse.Namespace, index: Index) -> int:
     d = index.diff(args.ref, args.ref2)
     data = d.as_dict()
     if args.json:
-        json_out(data)
+        json_out(data, args.out)
         return 0
     base = f"{d.base.id} (v{d.base.version})" if d.base else "the empty index"
-    print(f"from {base} to {d.head.id} (v{d.head.version})")
+    print(f"from {base} to {d.head.id} (v{d.head.version})", file=args.out)
     docs = data["documents"]
     for label, key in (("added", "added"), ("modified", "modified"), ("removed", "removed")):
         for doc in docs[key]:
-            print(f"  {label:<9} {doc}")
+            print(f"  {label:<9} {doc}", file=args.out)
     for m in docs["moved"]:
-        print(f"  moved     {m['from']} -> {m['to']}")
+        print(f"  moved     {m['from']} -> {m['to']}", file=args.out)
     c = data["counts"]
     print(
         f"documents: {c['documents']['added']} added, {c['documents']['modified']} modified, "
         f"{c['documents']['removed']} removed, {c['documents']['moved']} moved; chunks: "
-        f"{c['chunks']['added']} added, {c['chunks']['removed']} removed"
+        f"{c['chunks']['added']} added, {c['chunks']['removed']} removed",
+        file=args.out,
     )
     return 0
 
@@ -67,40 +69,47 @@ def cmd_diff(args: argparse.Namespace, index: Index) -> int:
 def cmd_tag(args: argparse.Namespace, index: Index) -> int:
     commit = index.tag(args.name, args.ref)
     if args.json:
-        json_out({"tag": args.name, "commit": commit.as_dict()})
+        json_out({"tag": args.name, "commit": commit.as_dict()}, args.out)
     else:
-        print(f"tagged {commit.id} (version {commit.version}, {commit.time}) as {args.name}")
+        print(
+            f"tagged {commit.id} (version {commit.version}, {commit.time}) as {args.name}",
+            file=args.out,
+        )
     return 0
 
 
 def cmd_tags(args: argparse.Namespace, index: Index) -> int:
     tags = index.tags()
     if args.json:
-        json_out({"tags": {name: c.as_dict() for name, c in tags.items()}})
+        json_out({"tags": {name: c.as_dict() for name, c in tags.items()}}, args.out)
         return 0
     if not tags:
-        print("no tags")
+        print("no tags", file=args.out)
     for name, c in tags.items():
-        print(f"{name:<20} {c.id}  v{c.version:<5} {c.time}")
+        print(f"{name:<20} {c.id}  v{c.version:<5} {c.time}", file=args.out)
     return 0
 
 
 def cmd_untag(args: argparse.Namespace, index: Index) -> int:
     commit_id = index.untag(args.name)
-    print(f"removed tag {args.name} (was {commit_id}); retention may now remove that version")
+    print(
+        f"removed tag {args.name} (was {commit_id}); retention may now remove that version",
+        file=args.out,
+    )
     return 0
 
 
-def cmd_rollback(args: argparse.Namespace, index: Index, confirm: Any) -> int:
+def cmd_rollback(args: argparse.Namespace, index: Index) -> int:
+    confirm = args.confirm
     if args.dry_run:
         plan = index.plan_rollback(args.ref)
         if args.json:
-            json_out(plan.as_dict())
+            json_out(plan.as_dict(), args.out)
         else:
-            print(plan.describe())
+            print(plan.describe(), file=args.out)
         return 0
     if not args.yes and not args.json:
-        print(index.plan_rollback(args.ref).describe())
+        print(index.plan_rollback(args.ref).describe(), file=args.out)
     commit = index.rollback(
         args.ref,
         pause=args.pause,
@@ -108,50 +117,55 @@ def cmd_rollback(args: argparse.Namespace, index: Index, confirm: Any) -> int:
         confirm=(lambda message: confirm("Roll back?")) if not args.json else confirm,
     )
     if args.json:
-        json_out({"commit": commit.as_dict(), "paused": args.pause})
+        json_out({"commit": commit.as_dict(), "paused": args.pause}, args.out)
     else:
         summary = _counts(commit.as_dict())
-        print(f"rolled back: commit {commit.id} (version {commit.version}): {summary}")
+        print(
+            f"rolled back: commit {commit.id} (version {commit.version}): {summary}", file=args.out
+        )
         if args.pause:
-            print("syncing is paused; `upwell resume` lifts the pause")
+            print("syncing is paused; `upwell resume` lifts the pause", file=args.out)
     return 0
 
 
 def cmd_resume(args: argparse.Namespace, index: Index) -> int:
     was = index.resume()
-    print("syncing resumed" if was else "syncing was not paused")
+    print("syncing resumed" if was else "syncing was not paused", file=args.out)
     return 0
 
 
-def cmd_erase(args: argparse.Namespace, index: Index, confirm: Any) -> int:
-    result = index.erase(args.patterns, yes=args.yes, confirm=confirm)
+def cmd_erase(args: argparse.Namespace, index: Index) -> int:
+    result = index.erase(args.patterns, yes=args.yes, confirm=args.confirm, cwd=args.cwd)
     if args.json:
-        json_out(result)
+        json_out(result, args.out)
     else:
         print(
             f"erased {result['documents']} documents ({result['chunks_deleted']} chunks, "
-            f"{result['vectors_deleted']} cached vectors); old versions removed"
+            f"{result['vectors_deleted']} cached vectors); old versions removed",
+            file=args.out,
         )
         for doc in result["erased"]:
-            print(f"  {doc}")
+            print(f"  {doc}", file=args.out)
     return 0
 
 
-def cmd_maintain(args: argparse.Namespace, index: Index, confirm: Any) -> int:
+def cmd_maintain(args: argparse.Namespace, index: Index) -> int:
+    confirm = args.confirm
     if not args.yes and not args.json:
         plan = index.plan_retention(args.keep_days)
-        print(plan.describe())
+        print(plan.describe(), file=args.out)
     result = index.maintain(keep_days=args.keep_days, yes=args.yes, confirm=confirm)
     if args.json:
-        json_out(result)
+        json_out(result, args.out)
         return 0
     for name, t in result["tables"].items():
         print(
             f"{name:<11} data files {t['data_files_before']} -> {t['data_files_after']}, "
-            f"{t['versions_removed']} old versions removed, {t['versions_kept']} kept"
+            f"{t['versions_removed']} old versions removed, {t['versions_kept']} kept",
+            file=args.out,
         )
     for ix in result["indexes_created"]:
-        print(f"index created: {ix}")
+        print(f"index created: {ix}", file=args.out)
     return 0
 
 
@@ -172,12 +186,13 @@ def rebuild_command(args: argparse.Namespace, index: Index) -> int:
     )
     data = report.as_dict()
     if args.json:
-        json_out(data)
+        json_out(data, args.out)
     else:
         c = data["chunks"]
         print(
             f"rebuilt {data['documents']['added']} documents into {args.into}: "
-            f"{c['embedded']} chunks embedded, {c['reused']} reused from the old index"
+            f"{c['embedded']} chunks embedded, {c['reused']} reused from the old index",
+            file=args.out,
         )
     return 0
 
@@ -185,7 +200,6 @@ def rebuild_command(args: argparse.Namespace, index: Index) -> int:
 def register(sub: Any) -> None:
     """Add the history commands to the ``upwell`` subcommand parser."""
     formatter = HelpFormatter
-    confirm = confirm_on_terminal
 
     def add(name: str, help_: str, description: str, epilog: str) -> argparse.ArgumentParser:
         return sub.add_parser(
@@ -258,7 +272,7 @@ def register(sub: Any) -> None:
     p.add_argument("--dry-run", action="store_true", help="only say what would change")
     p.add_argument("--yes", action="store_true", help="do not ask for confirmation")
     p.add_argument("--json", action="store_true", help="print as JSON")
-    p.set_defaults(func=lambda a, ix: cmd_rollback(a, ix, confirm))
+    p.set_defaults(func=cmd_rollback)
 
     p = add(
         "resume",
@@ -305,7 +319,7 @@ def register(sub: Any) -> None:
     p.add_argument("patterns", nargs="+", metavar="PATH_OR_GLOB")
     p.add_argument("--yes", action="store_true", help="do not ask for confirmation")
     p.add_argument("--json", action="store_true", help="print as JSON")
-    p.set_defaults(func=lambda a, ix: cmd_erase(a, ix, confirm))
+    p.set_defaults(func=cmd_erase)
 
     p = add(
         "maintain",
@@ -319,4 +333,4 @@ def register(sub: Any) -> None:
     p.add_argument("--keep-days", type=float, default=30.0, metavar="DAYS")
     p.add_argument("--yes", action="store_true", help="do not ask for confirmation")
     p.add_argument("--json", action="store_true", help="print as JSON")
-    p.set_defaults(func=lambda a, ix: cmd_maintain(a, ix, confirm))
+    p.set_defaults(func=cmd_maintain)

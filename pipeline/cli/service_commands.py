@@ -10,6 +10,7 @@ import argparse
 from pathlib import Path
 from typing import Any
 
+from pipeline.cli import handover
 from pipeline.cli.common import HelpFormatter, json_out
 from pipeline.config import STARTER_TEXT, Config
 from pipeline.errors import EXIT_INCONSISTENT, EXIT_OK, UsageError
@@ -34,7 +35,10 @@ def cmd_init(args: argparse.Namespace, index: Index) -> int:
     if target.exists() and not args.force:
         raise UsageError(f"{target} exists; pass --force to overwrite it")
     target.write_text(STARTER_TEXT, encoding="utf-8")
-    print(f"wrote {target}: edit the [[source]] entries, then `upwell --config {target} watch`")
+    print(
+        f"wrote {target}: edit the [[source]] entries, then `upwell --config {target} watch`",
+        file=args.out,
+    )
     return 0
 
 
@@ -43,7 +47,7 @@ def cmd_watch(args: argparse.Namespace, index: Index) -> int:
     if not config.sources:
         raise UsageError(f"config {config.file}: no [[source]] to watch")
     configure_logging(args.log_format)
-    return Service(config, index).run()
+    return Service(config, index, commands=handover.handler(args.parser, index)).run()
 
 
 def cmd_verify(args: argparse.Namespace, index: Index) -> int:
@@ -54,19 +58,22 @@ def cmd_verify(args: argparse.Namespace, index: Index) -> int:
     else:
         report = verify_index(index, sources, drift=not args.no_drift)
     if args.json:
-        json_out(report.as_dict())
+        json_out(report.as_dict(), args.out)
     else:
         c = report.counted
         print(
             f"checked:   {c['documents']} documents, {c['chunks']} chunks, {c['commits']} "
-            f"commits, {c['tombstones']} tombstones"
+            f"commits, {c['tombstones']} tombstones",
+            file=args.out,
         )
         if report.repaired:
-            print(f"repaired:  {len(report.repaired)} documents re-indexed")
+            print(f"repaired:  {len(report.repaired)} documents re-indexed", file=args.out)
         for p in report.problems:
             where = f"{p.doc_id}: " if p.doc_id else ""
-            print(f"{p.check}: {where}{p.detail}")
-        print("consistent" if report.consistent else f"{len(report.problems)} problems")
+            print(f"{p.check}: {where}{p.detail}", file=args.out)
+        print(
+            "consistent" if report.consistent else f"{len(report.problems)} problems", file=args.out
+        )
     return EXIT_OK if report.consistent else EXIT_INCONSISTENT
 
 

@@ -14,6 +14,11 @@ Guarantees:
   cheap. That also covers every event shape watchdog 7 produces here: save-by-rename (the
   original gets no modified event, but the rename's destination is queued), ``cp`` over a file
   (modified only), ``mv`` in (created only), ``mv`` out (deleted late), a folder moved in.
+- Write commands (``rollback``, ``resume``, ``tag``, ``erase``, ``maintain``, ...) run by hand
+  while the service runs are handed to it over its owner-only control socket
+  (``pipeline.service.control``) and run in the writer thread between two batches, with the
+  caller's prompts and output. A rollback with ``--pause`` stops syncing at once; ``resume``
+  lifts it and queues a reconcile.
 - SIGTERM/SIGINT stop intake, let the batch in hand commit, and return 0; what was queued but not
   synced is picked up by the reconcile at the next start. SIGHUP reloads the configuration.
 """
@@ -26,6 +31,7 @@ import os
 import signal
 import threading
 import time
+from collections.abc import Callable
 from typing import Any
 
 from apscheduler.schedulers.background import BackgroundScheduler
@@ -36,7 +42,9 @@ from watchdog.observers import Observer
 from pipeline.config import Config, SourceConfig, load_config
 from pipeline.engine.reports import SyncReport
 from pipeline.errors import ConfirmationRequired, SourceError, SyncPaused, UpwellError
+from pipeline.history import PAUSED
 from pipeline.index import Index
+from pipeline.service.control import ControlServer, Session
 from pipeline.service.metrics import ServiceMetrics
 from pipeline.service.watching import POLL_SECONDS, SettleQueue, SourceEvents, WorkQueue
 
@@ -48,7 +56,16 @@ log = logging.getLogger("upwell.service")
 class Service:
     """One ``upwell watch`` process. ``run()`` blocks until stopped and returns the exit code."""
 
-    def __init__(self, config: Config, index: Index, *, model: str | None = None) -> None:
+    def __init__(
+        self,
+        config: Config,
+        index: Index,
+        *,
+        model: str | None = None,
+        commands: Callable[[Session, Config], int] | None = None,
+    ) -> None:
+        """``commands(session, config)`` runs a write command handed over on the control
+        socket (the command line supplies it); without it the socket is not opened."""
         self.config = config
         self.index = index
         self.model = model
@@ -69,6 +86,8 @@ class Service:
         self._failing: dict[str, str] = {}  # source -> why its last sync failed
         self.index_paused = threading.Event()  # the last sync was refused with SyncPaused
         self.started_at = time.time()
+        self._commands = commands
+        self._control: ControlServer | None = None
 
     # --- what the HTTP API reads ------------------------------------------------------------
 
@@ -99,6 +118,7 @@ class Service:
                 signal.signal(signal.SIGTERM, self._on_stop_signal)
                 signal.signal(signal.SIGINT, self._on_stop_signal)
                 signal.signal(signal.SIGHUP, lambda *_: self.reload_requested.set())
+            self._refresh_pause()
             self._http = start_http_server(self, self.config.server)
             host, port = self._http.server_address[:2]
             log.info(
@@ -108,6 +128,10 @@ class Service:
             self._writer = threading.Thread(target=self._writer_loop, name="writer", daemon=True)
             self._settler = threading.Thread(target=self._settle_loop, name="settle", daemon=True)
             self._start_scheduler()
+            if self._commands is not None:
+                self._control = ControlServer(self.index.path, self.work.add_command)
+                run_command = self._commands
+                self._control.start(lambda session: run_command(session, self.config))
             self._apply_sources({}, {s.name: s for s in self.config.sources})
             self.reconcile("start")
             self._writer.start()
@@ -135,6 +159,8 @@ class Service:
             self._scheduler.shutdown(wait=False)
         if self._writer is not None:
             self._writer.join(timeout=60)
+        if self._control is not None:
+            self._control.stop()
         for observer in observers:
             observer.join(timeout=2)
         if self._http is not None:
@@ -298,8 +324,24 @@ class Service:
             work = self.work.take(self.stop_event, service.batch_seconds, service.batch_documents)
             if work is None:
                 continue
-            if self.config.service.paused:
-                continue  # dropped: unpausing queues a reconcile, which catches up
+            for command in work.commands:
+                self.busy.set()
+                try:
+                    self.run_command(command)
+                finally:
+                    self.busy.clear()
+            if self.paused():
+                # dropped: unpausing queues a reconcile, which catches up
+                if work.sources:
+                    why = "by a rollback" if self.index_paused.is_set() else "by the configuration"
+                    names = ", ".join(sorted(work.sources))
+                    log.info(
+                        f"syncing is paused {why}: skipped syncing {names}",
+                        extra={
+                            "fields": {"event": "skipped_paused", "sources": sorted(work.sources)}
+                        },
+                    )
+                continue
             configured = {s.name: s for s in self.config.sources}
             self.busy.set()
             try:
@@ -315,6 +357,28 @@ class Service:
             self.metrics.queue_depth.set(self.queue_depth())
 
     # --- writing (writer thread only) -----------------------------------------------------------
+
+    def run_command(self, command: Callable[[], None]) -> None:
+        """A write command handed over on the control socket; then whatever pause it set or
+        lifted takes effect before the next batch."""
+        was_paused = self.index_paused.is_set()
+        command()
+        self._refresh_pause()
+        if was_paused and not self.index_paused.is_set():
+            self.reconcile("resume")  # bring the index in line with the sources again
+
+    def _refresh_pause(self) -> None:
+        """Follow the index's own pause flag (set by ``rollback --pause``)."""
+        try:
+            paused = self.index.exists and bool(self.index.store().settings().get(PAUSED))
+        except UpwellError:
+            return
+        if paused and not self.index_paused.is_set():
+            log.warning(
+                "syncing is paused by a rollback; `upwell resume` lifts the pause",
+                extra={"fields": {"event": "paused"}},
+            )
+        (self.index_paused.set if paused else self.index_paused.clear)()
 
     def sync_source(self, source: SourceConfig, trigger: str) -> dict[str, Any] | None:
         """Sync one whole source; log the commit and each failure. Never raises UpwellError."""

@@ -89,11 +89,13 @@ class _Work:
     sources: dict[str, str] = field(default_factory=dict)  # source name -> trigger
     paths: int = 0
     maintenance: bool = False
+    commands: list[Callable[[], None]] = field(default_factory=list)  # run before the syncs
     first_at: float | None = None
 
 
 class WorkQueue:
-    """What the writer has to do next: sources to sync (with their trigger) and maintenance."""
+    """What the writer has to do next: commands handed over by the command line, sources to
+    sync (with their trigger) and maintenance."""
 
     def __init__(self) -> None:
         self._cond = threading.Condition()
@@ -115,10 +117,19 @@ class WorkQueue:
                 self._work.first_at = time.monotonic()
             self._cond.notify_all()
 
+    def add_command(self, run: Callable[[], None]) -> None:
+        """A command for the writer; it does not wait for the batch window."""
+        with self._cond:
+            self._work.commands.append(run)
+            if self._work.first_at is None:
+                self._work.first_at = time.monotonic()
+            self._cond.notify_all()
+
     def take(
         self, stop: threading.Event, window: float, max_paths: int, timeout: float = 0.5
     ) -> _Work | None:
-        """The pending work, once ``window`` has passed since the first of it (or it is full)."""
+        """The pending work, once ``window`` has passed since the first of it (or it is full,
+        or a command is waiting)."""
         with self._cond:
             deadline = time.monotonic() + timeout
             while self._work.first_at is None:
@@ -126,7 +137,7 @@ class WorkQueue:
                 if left <= 0 or stop.is_set():
                     return None
                 self._cond.wait(min(left, 0.1))
-            while not stop.is_set() and self._work.paths < max_paths:
+            while not stop.is_set() and self._work.paths < max_paths and not self._work.commands:
                 left = self._work.first_at + window - time.monotonic()
                 if left <= 0:
                     break
