@@ -641,3 +641,117 @@ def test_a_full_disk_during_a_commit_loses_nothing_is_reported_and_passes(tmp_pa
         wait_for("the sync to go through once space returned", lambda: not s.failing(), 60)
         docs = s.index.store().documents_of_source("office")
         assert {d["path"] for d in docs.values()} == {"a.md", "b.md"}
+
+
+def test_an_unreachable_s3_endpoint_removes_nothing_is_retried_on_schedule_and_clears(
+    tmp_path, monkeypatch
+):
+    from tests.support.gate import Gate
+    from tests.support.s3_server import running_s3_server
+
+    for name in ("AWS_PROFILE", "AWS_SESSION_TOKEN"):
+        monkeypatch.delenv(name, raising=False)
+    monkeypatch.setenv("AWS_CONFIG_FILE", str(tmp_path / "no-aws-config"))
+    monkeypatch.setenv("AWS_SHARED_CREDENTIALS_FILE", str(tmp_path / "no-aws-credentials"))
+    monkeypatch.setenv("AWS_EC2_METADATA_DISABLED", "true")
+    with running_s3_server() as s3:
+        for name, value in s3.environment().items():
+            monkeypatch.setenv(name, value)
+        client = s3.client()
+        client.create_bucket(Bucket="marrowby-brief")
+        for key, body in (
+            ("a.md", "# A\n\nThe seat clamp takes 6 Nm.\n"),
+            ("b.md", "# B\n\nM5.\n"),
+        ):
+            client.put_object(Bucket="marrowby-brief", Key=key, Body=body.encode())
+        # The service reaches the server through a gate the test can shut: the endpoint goes
+        # down and comes back on the same address while the server keeps its objects.
+        gate = Gate(int(s3.endpoint_url.rsplit(":", 1)[1]))
+        sources = [
+            {
+                "name": "bucket",
+                "kind": "s3",
+                "bucket": "marrowby-brief",
+                "endpoint_url": gate.url,
+                "every": "1s",
+            }
+        ]
+        try:
+            with in_process(tmp_path, sources, service={"reconcile_every": "1h"}) as s:
+                assert s.json("/status")["totals"]["documents"] == 2
+                gate.shut()
+                wait_for("the endpoint to be reported", lambda: "bucket" in s.failing(), 120)
+                (source,) = s.json("/status")["sources"]
+                assert "cannot be reached" in source["error"]["reason"]
+                assert source["documents"] == 2  # nothing removed
+                # While it is down, an object is added: only a retry after it answers sees it.
+                client.put_object(Bucket="marrowby-brief", Key="c.md", Body=b"# C\n\nNew.\n")
+                gate.reopen()
+                wait_for("the schedule to retry and clear", lambda: not s.failing(), 120)
+
+                def paths() -> set[str]:
+                    s.index.store().refresh()
+                    docs = s.index.store().documents_of_source("bucket")
+                    return {d["path"] for d in docs.values()}
+
+                wait_for("the new object to be synced", lambda: "c.md" in paths(), 60)
+                assert paths() == {"a.md", "b.md", "c.md"}
+        finally:
+            gate.shut()
+
+
+def test_a_git_remote_that_goes_away_removes_nothing_is_retried_on_schedule_and_clears(
+    tmp_path, monkeypatch
+):
+    from tests.test_connector_git import commit_all, new_repo
+
+    for name, value in {
+        "GIT_CONFIG_GLOBAL": os.devnull,
+        "GIT_CONFIG_NOSYSTEM": "1",
+        "GIT_AUTHOR_NAME": "Marrowby Workshop",
+        "GIT_AUTHOR_EMAIL": "workshop@marrowby.invalid",
+        "GIT_COMMITTER_NAME": "Marrowby Workshop",
+        "GIT_COMMITTER_EMAIL": "workshop@marrowby.invalid",
+    }.items():
+        monkeypatch.setenv(name, value)
+    origin = new_repo(tmp_path / "origin")
+    write(origin / "a.md", "# A\n\nThe seat clamp takes 6 Nm.\n")
+    write(origin / "b.md", "# B\n\nBottle cage bolts are M5.\n")
+    commit_all(origin, "two notes")
+    sources = [{"name": "workshop", "kind": "git", "url": str(origin), "every": "1s"}]
+    with in_process(tmp_path, sources, service={"reconcile_every": "1h"}) as s:
+        assert s.json("/status")["totals"]["documents"] == 2
+        origin.rename(tmp_path / "origin-gone")  # the remote is gone
+        wait_for("the missing remote to be reported", lambda: "workshop" in s.failing(), 60)
+        (source,) = s.json("/status")["sources"]
+        assert "fatal:" in source["error"]["reason"]  # git's own words
+        assert source["documents"] == 2  # nothing removed
+        (tmp_path / "origin-gone").rename(origin)
+        write(origin / "c.md", "# C\n\nA new note about chain wear.\n")
+        commit_all(origin, "a third note")
+        wait_for("the schedule to retry and clear", lambda: not s.failing(), 60)
+
+        def paths() -> set[str]:
+            s.index.store().refresh()
+            return {d["path"] for d in s.index.store().documents_of_source("workshop").values()}
+
+        wait_for("the new commit to be synced", lambda: "c.md" in paths(), 60)
+        assert paths() == {"a.md", "b.md", "c.md"}
+
+
+@pytest.mark.filterwarnings("ignore::pytest.PytestUnhandledThreadExceptionWarning")
+def test_healthz_turns_unhealthy_when_the_scheduler_dies(tmp_path):
+    write(tmp_path / "share" / "a.md", "# A\n\nThe seat clamp takes 6 Nm.\n")
+    with in_process(tmp_path, [{"name": "share", "path": str(tmp_path / "share")}]) as s:
+        assert s.get("/healthz")[0] == 200
+        scheduler = s.service._scheduler
+
+        def dies() -> float:
+            raise RuntimeError("scheduler killed by the test")
+
+        # The scheduler's thread runs _process_jobs each time it wakes; raising there ends it.
+        scheduler._process_jobs = dies
+        scheduler.wakeup()
+        wait_for("/healthz to say 503", lambda: s.get("/healthz")[0] == 503, 60)
+        assert not s.service.healthy()
+        assert "scheduler" in json.dumps(s.get("/healthz")[1])

@@ -142,8 +142,11 @@ class _Handler(BaseHTTPRequestHandler):
         )
 
     def _healthz(self, query: dict[str, list[str]]) -> None:
-        ok = self.server.service.healthy()
+        problems = self.server.service.problems()
+        ok = not problems
         data: dict[str, Any] = {"ok": ok}
+        if problems:
+            data["problems"] = problems
         # The service is alive, but say which sources cannot be synced and why (an unmounted
         # share, a server that does not answer): their documents stay as they were.
         failing = self.server.service.failing_sources()

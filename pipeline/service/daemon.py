@@ -93,9 +93,23 @@ class Service:
 
     def healthy(self) -> bool:
         """Writer thread and scheduler both alive."""
-        writer_ok = self._writer is not None and self._writer.is_alive()
-        scheduler_ok = self._scheduler is not None and self._scheduler.running
-        return bool(writer_ok and scheduler_ok and not self.stop_event.is_set())
+        return not self.problems()
+
+    def problems(self) -> list[str]:
+        """Why the service is not healthy, one line each; empty when it is."""
+        found = []
+        if self._writer is None or not self._writer.is_alive():
+            found.append("the writer thread is not running")
+        # ``running`` is the scheduler's state flag and stays true if its thread dies, so the
+        # thread itself is checked (BackgroundScheduler keeps it as ``_thread``).
+        thread = getattr(self._scheduler, "_thread", None)
+        if self._scheduler is None or not self._scheduler.running or thread is None:
+            found.append("the scheduler is not running")
+        elif not thread.is_alive():
+            found.append("the scheduler's thread has died: scheduled rescans no longer run")
+        if self.stop_event.is_set():
+            found.append("the service is stopping")
+        return found
 
     def paused(self) -> bool:
         """Paused by the configuration, or by a rollback that paused syncing (``upwell resume``)."""
