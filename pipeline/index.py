@@ -176,6 +176,21 @@ def _as_document_patterns(
     return out
 
 
+def _document_matcher(patterns: Sequence[str]) -> Callable[[Mapping[str, Any]], bool]:
+    """A test of a document row (``source``, ``path``, ``doc_id``) against globs matched on
+    ``source/path``, ``path`` or the doc id."""
+
+    def matches(d: Mapping[str, Any]) -> bool:
+        return any(
+            fnmatch.fnmatchcase(f"{d['source']}/{d['path']}", p)
+            or fnmatch.fnmatchcase(d["path"], p)
+            or fnmatch.fnmatchcase(d["doc_id"], p)
+            for p in patterns
+        )
+
+    return matches
+
+
 def _hit(r: retrieval.Ranked) -> Hit:
     row = r.row
     return Hit(
@@ -598,17 +613,44 @@ class Index:
         """The commit a REF names: tag, version number, commit id (prefix) or ISO-8601 time."""
         return history.resolve(self.store(), ref)
 
-    def diff(self, ref: str, ref2: str | None = None) -> Diff:
+    def diff(
+        self,
+        ref: str,
+        ref2: str | None = None,
+        *,
+        paths: Sequence[str] = (),
+        cwd: str | None = None,
+    ) -> Diff:
         """Documents and chunks added, changed and removed between two commits.
 
-        With one REF: that commit against its parent. With two: from REF to REF2.
+        With one REF: that commit against its parent. With two: from REF to REF2. ``paths``
+        limits it to the documents they name, as ``erase`` takes them: globs on
+        ``source/path``, ``path`` or the doc id, or paths on disk inside a folder source.
         """
         store = self.store()
         log = history.commits(store)
         first = history.resolve(store, ref, log)
-        if ref2 is None:
-            return history.diff(store, history.parent(log, first), first)
-        return history.diff(store, first, history.resolve(store, ref2, log))
+        base, head = (
+            (history.parent(log, first), first)
+            if ref2 is None
+            else (first, history.resolve(store, ref2, log))
+        )
+        if not paths:
+            return history.diff(store, base, head)
+        patterns = self.document_patterns(paths, cwd=cwd)
+        restricted = history.diff(store, base, head, keep=_document_matcher(patterns))
+        if restricted is None:
+            raise UsageError(
+                f"no document matches {', '.join(paths)} in either commit "
+                f"(v{base.version if base else 0} or v{head.version})"
+            )
+        return restricted
+
+    def document_patterns(self, patterns: Sequence[str], *, cwd: str | None = None) -> list[str]:
+        """``patterns`` as given, plus the ``SOURCE/PATH`` form of each that names a place on
+        disk (absolute, or relative to ``cwd``) inside a folder source's recorded location."""
+        locations = self.store().settings().get("source_locations") if self.exists else None
+        return _as_document_patterns(patterns, locations, cwd)
 
     def tags(self) -> dict[str, Commit]:
         store = self.store()
@@ -837,16 +879,8 @@ class Index:
             patterns = _as_document_patterns(
                 patterns, store.settings().get("source_locations"), cwd
             )
-            matched = sorted(
-                d["doc_id"]
-                for d in docs
-                if any(
-                    fnmatch.fnmatchcase(f"{d['source']}/{d['path']}", p)
-                    or fnmatch.fnmatchcase(d["path"], p)
-                    or fnmatch.fnmatchcase(d["doc_id"], p)
-                    for p in patterns
-                )
-            )
+            matches = _document_matcher(patterns)
+            matched = sorted(d["doc_id"] for d in docs if matches(d))
             if not matched:
                 raise UsageError(f"no document matches {', '.join(patterns)}")
             shown = ", ".join(matched[:10]) + (

@@ -393,6 +393,110 @@ def test_erase_takes_the_path_on_disk_absolute_or_relative(
         ix.erase([str(tmp_path / "elsewhere" / "returns.md")], yes=True)
 
 
+def test_erase_from_the_cli_with_a_glob_and_with_no_match(
+    tmp_path, small_corpus, hash_embedder, capsys
+):
+    ix = make_index(tmp_path, hash_embedder)
+    ix.sync([small_corpus])
+    index = str(ix.path)
+    # No match: exit 2 (usage), one line that names the pattern, nothing changed.
+    version = ix.status()["version"]
+    assert main(["--index", index, "erase", "share/handbook/*", "--yes"]) == 2
+    err = capsys.readouterr().err
+    assert "no document matches share/handbook/*" in err
+    assert ix.status()["version"] == version
+    # A glob across folders: the documents in share/'s folders whose names end in "s".
+    assert main(["--index", index, "erase", "share/*s/*.*", "--yes", "--json"]) == 0
+    erased = json.loads(capsys.readouterr().out)["erased"]
+    assert sorted(erased) == ["share:notices/ECN-0007.txt", "share:policies/returns.md"]
+    ix.store().refresh()  # the command line erased through an Index of its own
+    left = {d["path"] for d in ix.store().documents_of_source("share").values()}
+    assert left == {"training/truing.vtt"}  # "training" does not end in "s"
+
+
+def test_diff_and_search_take_documents_as_erase_does(
+    tmp_path, small_corpus, hash_embedder, monkeypatch, capsys
+):
+    ix = make_index(tmp_path, hash_embedder)
+    reports = three_commits(ix, small_corpus)
+    first, second = reports[0]["commit"], reports[1]["commit"]
+    # The second commit modified returns.md and added loans.md.
+    whole = ix.diff(second)
+    assert (whole.modified, whole.added) == (
+        ("share:policies/returns.md",),
+        ("share:policies/loans.md",),
+    )
+    # By its path on disk, absolute: only that document, and only its chunks.
+    only = ix.diff(second, paths=[str(small_corpus / "policies" / "returns.md")])
+    assert (only.modified, only.added, only.removed) == (("share:policies/returns.md",), (), ())
+    assert 0 < only.chunks_added < whole.chunks_added
+    # Relative to the current folder, from the command line, across two commits.
+    monkeypatch.chdir(small_corpus / "notices")
+    index = str(ix.path)
+    assert (
+        main(
+            [
+                "--index",
+                index,
+                "diff",
+                first,
+                reports[2]["commit"],
+                "--path",
+                "./ECN-0007.txt",
+                "--json",
+            ]
+        )
+        == 0
+    )
+    d = json.loads(capsys.readouterr().out)
+    assert d["documents"] == {
+        "added": [],
+        "modified": [],
+        "removed": ["share:notices/ECN-0007.txt"],
+        "moved": [],
+    }
+    # A name that matches nothing at either end says so.
+    assert main(["--index", index, "diff", second, "--path", "share/handbook/*"]) == 2
+    assert "no document matches share/handbook/*" in capsys.readouterr().err
+    # search --path takes the same path on disk.
+    monkeypatch.chdir(small_corpus)
+    assert (
+        main(
+            [
+                "--index",
+                index,
+                "search",
+                "returns",
+                "--mode",
+                "keyword",
+                "--path",
+                "policies/returns.md",
+                "--json",
+            ]
+        )
+        == 0
+    )
+    paths = {h["path"] for h in json.loads(capsys.readouterr().out)["results"]}
+    assert paths == {"policies/returns.md"}
+    assert (
+        main(
+            [
+                "--index",
+                index,
+                "search",
+                "returns",
+                "--mode",
+                "keyword",
+                "--path",
+                str(tmp_path / "elsewhere.md"),
+                "--json",
+            ]
+        )
+        == 0
+    )
+    assert json.loads(capsys.readouterr().out)["results"] == []
+
+
 def test_rollback_to_a_commit_whose_versions_maintain_removed_is_a_clear_error(
     tmp_path, small_corpus, hash_embedder
 ):

@@ -118,7 +118,7 @@ def cmd_search(args: argparse.Namespace, index: Index) -> int:
         source=args.source or None,
         as_of=args.as_of,
         mode=args.mode,
-        paths=args.path or (),
+        paths=index.document_patterns(args.path) if args.path else (),
         types=args.type or (),
         since=args.since,
         per_doc=args.per_doc,
@@ -328,7 +328,7 @@ def build_parser() -> argparse.ArgumentParser:
         action="append",
         metavar="GLOB",
         help="only documents whose PATH or SOURCE/PATH matches GLOB (* and ? as in a shell; "
-        "* also matches /); repeatable",
+        "* also matches /), or this file's path on disk inside a folder source; repeatable",
     )
     p.add_argument(
         "--type",

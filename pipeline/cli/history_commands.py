@@ -43,7 +43,7 @@ def cmd_history(args: argparse.Namespace, index: Index) -> int:
 
 
 def cmd_diff(args: argparse.Namespace, index: Index) -> int:
-    d = index.diff(args.ref, args.ref2)
+    d = index.diff(args.ref, args.ref2, paths=args.path or ())
     data = d.as_dict()
     if args.json:
         json_out(data, args.out)
@@ -222,12 +222,20 @@ def register(sub: Any) -> None:
         "documents and chunks changed between two commits",
         "What changed from REF's parent to REF, or from REF to REF2: documents added, "
         "modified, removed and moved (by name), and how many chunks were added and removed. "
-        f"A REF is {REF_HELP}.",
+        f"A REF is {REF_HELP}. --path limits it to some documents, named as erase names them.",
         "examples:\n  upwell diff 01a2b3c4\n  upwell diff release-2026-11 HEAD-time-2026-12-01\n"
-        "  upwell diff v12 v15 --json",
+        "  upwell diff v12 v15 --json\n  upwell diff v12 v15 --path 'handbook/*'\n"
+        "  upwell diff v12 --path /srv/share/manuals/brakes.pdf",
     )
     p.add_argument("ref", metavar="REF")
     p.add_argument("ref2", metavar="REF2", nargs="?", default=None)
+    p.add_argument(
+        "--path",
+        action="append",
+        metavar="DOC",
+        help="only this document: SOURCE/PATH, PATH or a glob of them, or a file's path on "
+        "disk inside a folder source (repeatable)",
+    )
     p.add_argument("--json", action="store_true", help="print as JSON")
     p.set_defaults(func=cmd_diff)
 
@@ -312,9 +320,10 @@ def register(sub: Any) -> None:
         "cached vectors, then remove every earlier version of the index that still holds them. "
         "Earlier rollback points and all tags are lost. The tombstone log records the erasure "
         "without the name or the content. Patterns are globs on SOURCE/PATH, PATH or the doc "
-        "id. Asks first unless --yes.",
+        "id, or a file's path on disk (absolute, or relative to the current folder) inside a "
+        "folder source. Asks first unless --yes.",
         "examples:\n  upwell erase 'share/hr/complaint-0042.docx'\n  upwell erase 'share/tmp/*' "
-        "--yes",
+        "--yes\n  upwell erase /srv/share/hr/complaint-0042.docx",
     )
     p.add_argument("patterns", nargs="+", metavar="PATH_OR_GLOB")
     p.add_argument("--yes", action="store_true", help="do not ask for confirmation")

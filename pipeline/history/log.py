@@ -14,9 +14,10 @@ from __future__ import annotations
 
 import json
 import re
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
-from typing import Any
+from typing import Any, overload
 
 from pipeline.errors import StoreError, UnknownVersion, UsageError, first_line
 from pipeline.store.tables import Store
@@ -273,14 +274,39 @@ def diff_states(
     )
 
 
-def diff(store: Store, base: Commit | None, head: Commit) -> Diff:
+@overload
+def diff(store: Store, base: Commit | None, head: Commit) -> Diff: ...
+@overload
+def diff(
+    store: Store, base: Commit | None, head: Commit, keep: Callable[[dict[str, Any]], bool]
+) -> Diff | None: ...
+def diff(
+    store: Store,
+    base: Commit | None,
+    head: Commit,
+    keep: Callable[[dict[str, Any]], bool] | None = None,
+) -> Diff | None:
+    """What changed from ``base`` to ``head``. With ``keep``, only the documents whose row (at
+    either end) it accepts, and both ends of a move when either is kept; ``None`` when it
+    accepts no document at either end."""
     before_docs = documents_at(store, base.documents_version) if base else {}
+    after_docs = documents_at(store, head.documents_version)
     before_chunks = chunk_ids_at(store, base.version) if base else {}
+    after_chunks = chunk_ids_at(store, head.version)
+    whole = diff_states(before_docs, after_docs, before_chunks, after_chunks, base, head)
+    if keep is None:
+        return whole
+    kept = {d for d, row in (*before_docs.items(), *after_docs.items()) if keep(row)}
+    if not kept:
+        return None
+    for a, b in whole.moved:
+        if a in kept or b in kept:
+            kept |= {a, b}
     return diff_states(
-        before_docs,
-        documents_at(store, head.documents_version),
-        before_chunks,
-        chunk_ids_at(store, head.version),
+        {d: r for d, r in before_docs.items() if d in kept},
+        {d: r for d, r in after_docs.items() if d in kept},
+        {c: d for c, d in before_chunks.items() if d in kept},
+        {c: d for c, d in after_chunks.items() if d in kept},
         base,
         head,
     )
