@@ -363,8 +363,8 @@ class _ServiceStandIn:
         self.busy = threading.Event()
         self.started_at = time.time()
 
-    def healthy(self) -> bool:
-        return True
+    def problems(self) -> list[str]:
+        return []
 
     def paused(self) -> bool:
         return False
