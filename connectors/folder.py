@@ -108,6 +108,9 @@ class FolderSource:
     accept: Callable[[str], bool] = field(default=_accept_all, compare=False)
     # File suffixes to list (lower case, with the dot); checked inline, before ``accept``.
     suffixes: frozenset[str] | None = None
+    # Files the last full listing left out because upwell does not read their type, counted by
+    # suffix ("" for none), so a sync and status can say what the index does not cover.
+    skipped: dict[str, int] = field(default_factory=dict, compare=False, hash=False)
 
     @cached_property
     def _excluded(self) -> _Globs:
@@ -157,6 +160,7 @@ class FolderSource:
     def list_items(self) -> Iterator[SourceItem]:
         """Every accepted file with its stat fingerprint, in directory order."""
         self.check_root()
+        self.skipped.clear()
         yield from self._walk(self.root)
 
     def list_changes(
@@ -165,6 +169,7 @@ class FolderSource:
         """Every accepted key, and the items whose fingerprint key (``Fingerprint.key()``)
         is not ``unchanged_if[key]``, in one walk: an unchanged file makes no item at all."""
         self.check_root()
+        self.skipped.clear()
         keys: set[str] = set()
         changed = list(self._walk(self.root, unchanged_if, keys))
         return keys, changed
@@ -213,6 +218,8 @@ class FolderSource:
                             stack.append((entry.path, rel + "/"))
                         continue
                     if suffixes is not None and name[name.rfind(".") :].lower() not in suffixes:
+                        # Off the hot path: only files of a type upwell does not read get here.
+                        self._count_skipped(rel, name)
                         continue
                     if by_name_only:
                         if skip_name is not None and skip_name(name):
@@ -231,6 +238,15 @@ class FolderSource:
                     if stored(rel) == fingerprint_string(st.st_size, st.st_mtime_ns, st.st_ino):
                         continue
                 yield SourceItem(source, rel, Fingerprint(st.st_size, st.st_mtime_ns, st.st_ino))
+
+    def _count_skipped(self, rel: str, name: str) -> None:
+        """Count a file left out for its type, unless include/exclude leave it out anyway
+        (editor backups, hidden files): those are not part of what the source covers."""
+        if self._excluded.file(rel, name) or not self._included.file(rel, name):
+            return
+        dot = name.rfind(".")
+        suffix = name[dot:].lower() if dot > 0 else ""
+        self.skipped[suffix] = self.skipped.get(suffix, 0) + 1
 
     def read(self, key: str, max_bytes: int) -> bytes:
         """The file's bytes; DocumentUnreadable if it vanished or cannot be read."""

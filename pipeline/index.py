@@ -396,6 +396,7 @@ class Index:
                 raise
             self._record_source_errors(store, {}, [s.name for s in resolved])
             self._record_source_problems(store, resolved)
+            report.skipped = self._record_skipped(store, resolved)
             if locations is not None:
                 store.update_setting("source_locations", locations)
             if report.commits:
@@ -431,6 +432,26 @@ class Index:
                 recorded[source.name] = {"items": items, "since": utc_now()}
         if recorded != before:
             store.update_setting("source_problems", recorded)
+
+    @staticmethod
+    def _record_skipped(store: Store, sources: Sequence[Source]) -> dict[str, dict[str, int]]:
+        """Keep, for status, the files of a type upwell does not read, counted by suffix per
+        source (most first); returns this sync's counts."""
+        recorded: dict[str, Any] = dict(store.settings().get("source_skipped") or {})
+        before = dict(recorded)
+        now: dict[str, dict[str, int]] = {}
+        for source in sources:
+            skipped = getattr(source, "skipped", None)
+            if skipped is None:
+                continue  # a kind of source that does not count them
+            counts = dict(sorted(skipped.items(), key=lambda kv: (-kv[1], kv[0])))
+            if counts:
+                now[source.name] = recorded[source.name] = counts
+            else:
+                recorded.pop(source.name, None)
+        if recorded != before:
+            store.update_setting("source_skipped", recorded)
+        return now
 
     def record_source_error(self, source: str, reason: str) -> None:
         """Show in ``status`` (and the service's /healthz) that ``source`` was not synced and
@@ -753,7 +774,7 @@ class Index:
                 removal_reason="source removed",
             )
             report = engine.sync([_NoItems(name)], yes=True, trigger="remove-source")
-            for key in ("source_locations", "source_errors", "source_problems"):
+            for key in ("source_locations", "source_errors", "source_problems", "source_skipped"):
                 entries = dict(store.settings().get(key) or {})
                 if entries.pop(name, None) is not None:
                     store.update_setting(key, entries)

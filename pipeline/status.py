@@ -52,6 +52,8 @@ def index_status(store: Store, location: str) -> dict[str, Any]:
         per_source.setdefault(name, _empty_source(name))["problems"] = [
             {**item, "since": recorded["since"]} for item in recorded["items"]
         ]
+    for name, counts in (settings.get("source_skipped") or {}).items():
+        per_source.setdefault(name, _empty_source(name))["skipped"] = counts
     last = commits[-1] if commits else None
     return {
         "index": location,

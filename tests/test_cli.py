@@ -205,3 +205,48 @@ def test_readme_demo_runs_as_written(tmp_path):
     assert remove_and_move[2:4] == (1, 1) and remove_and_move[6] == 0
     assert "workshop-service-manual.pdf, p. 8" in out
     assert "bleeding-the-hb2-brake.vtt, 00:00:18-00:00:34" in out
+
+
+def test_files_of_types_upwell_does_not_read_are_counted_by_suffix_not_skipped_silently(
+    tmp_path, capsys
+):
+    share = tmp_path / "share"
+    (share / "drawings").mkdir(parents=True)
+    (share / "notes.md").write_text("# Notes\n\nThe seat clamp takes 6 Nm.\n")
+    for i in range(3):
+        (share / "drawings" / f"frame-{i}.DWG").write_bytes(b"AC1027")
+    (share / "archive.zip").write_bytes(b"PK\x05\x06" + bytes(18))
+    (share / "LICENCE").write_text("no suffix\n")
+    (share / ".hidden.dwg").write_bytes(b"x")  # excluded by default: not part of the share
+    (share / "~$notes.docx").write_bytes(b"x")  # an office lock file: excluded too
+    ix = str(tmp_path / "ix")
+
+    # The reference count: the standard library's walk, minus what the default excludes drop
+    # and the types upwell reads.
+    expected: dict[str, int] = {}
+    for _, _, files in os.walk(share):
+        for name in files:
+            if name.startswith((".", "~")) or name.endswith(".md"):
+                continue
+            suffix = Path(name).suffix.lower()
+            expected[suffix] = expected.get(suffix, 0) + 1
+    assert expected == {".dwg": 3, ".zip": 1, "": 1}
+
+    code, out, _ = run(capsys, "--index", ix, "--model", "hash", "sync", str(share))
+    assert code == 0
+    assert "skipped:   share: 3 .dwg, 1 (no suffix), 1 .zip (types upwell does not read)" in out
+    code, out, _ = run(capsys, "--index", ix, "sync", str(share), "--json")
+    assert json.loads(out)["skipped"] == {"share": expected}
+    code, out, _ = run(capsys, "--index", ix, "status", "--json")
+    (source,) = json.loads(out)["sources"]
+    assert source["skipped"] == expected and source["documents"] == 1
+    code, out, _ = run(capsys, "--index", ix, "status")
+    assert "  skipped: 3 .dwg, 1 (no suffix), 1 .zip" in out
+
+    # Once they are gone, the next sync clears the count.
+    for path in [*(share / "drawings").iterdir(), share / "archive.zip", share / "LICENCE"]:
+        path.unlink()
+    code, out, _ = run(capsys, "--index", ix, "sync", str(share), "--json")
+    assert json.loads(out)["skipped"] == {}
+    code, out, _ = run(capsys, "--index", ix, "status", "--json")
+    assert "skipped" not in json.loads(out)["sources"][0]

@@ -85,9 +85,19 @@ def cmd_sync(args: argparse.Namespace, index: Index) -> int:
             print(f"commit:    {data['commit']} (version {data['version']}){more}", file=args.out)
         else:
             print(f"commit:    none, nothing changed (version {data['version']})", file=args.out)
+        for name, counts in data["skipped"].items():
+            print(f"skipped:   {name}: {skipped_text(counts)}", file=args.out)
         for f in data["failures"]:
             print(f"failed:    {f['source']}/{f['path']}: {f['reason']}", file=args.err)
     return EXIT_PARTIAL if data["failures"] else EXIT_OK
+
+
+def skipped_text(counts: dict[str, int]) -> str:
+    """``412 .dwg, 37 .zip`` (most first, as recorded), with the reason once at the end."""
+    shown = [f"{n} {suffix or '(no suffix)'}" for suffix, n in list(counts.items())[:8]]
+    rest = sum(list(counts.values())[8:])
+    more = f", {rest} of {len(counts) - 8} other types" if rest else ""
+    return ", ".join(shown) + more + " (types upwell does not read)"
 
 
 def cmd_remove_source(args: argparse.Namespace, index: Index) -> int:
@@ -171,6 +181,8 @@ def cmd_status(args: argparse.Namespace, index: Index) -> int:
             print(f"  error:   {s['error']['reason']} (since {s['error']['since']})", file=args.out)
         for p in s.get("problems", []):
             print(f"  problem: {p['key']}: {p['problem']} (since {p['since']})", file=args.out)
+        if s.get("skipped"):
+            print(f"  skipped: {skipped_text(s['skipped'])}", file=args.out)
     if st.get("pending_erase"):
         pe = st["pending_erase"]
         print(
@@ -334,7 +346,7 @@ def build_parser() -> argparse.ArgumentParser:
         "--type",
         action="append",
         metavar="SUFFIX",
-        help="only documents of this format: pdf, docx, md, txt, vtt, srt, html (repeatable)",
+        help="only documents of this format: pdf, docx, pptx, md, txt, vtt, srt, html (repeatable)",
     )
     p.add_argument(
         "--since",

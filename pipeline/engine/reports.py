@@ -50,6 +50,9 @@ class SyncReport:
     failures: list[Failure] = field(default_factory=list)
     version: int = 0
     interrupted: bool = False
+    # Per source, files its listing left out because upwell does not read their type: suffix
+    # ("" for none) -> count.
+    skipped: dict[str, dict[str, int]] = field(default_factory=dict)
 
     def as_dict(self) -> dict[str, Any]:
         last = self.commits[-1] if self.commits else None
@@ -61,4 +64,5 @@ class SyncReport:
             "chunks": dict(self.counts.chunks),
             "failures": [f.as_dict() for f in self.failures],
             "interrupted": self.interrupted,
+            "skipped": {name: dict(counts) for name, counts in self.skipped.items()},
         }
