@@ -345,9 +345,12 @@ def _rewrite(data: bytes, replace: dict[str, bytes | None]) -> bytes:
     ],
 )
 def test_not_a_zip_is_corrupt_and_says_what_it_looks_like(data, looks_like):
-    # Reference for the description: pipeline.formats.describe_content's signature table.
+    # Reference for the description: pipeline.formats.describe_content's signature table. The
+    # public entry point runs the format table's check before the extractor.
+    from pipeline import formats
+
     with pytest.raises(CorruptDocument, match=f"not a PowerPoint .pptx.*{looks_like}"):
-        extract_pptx(data, Limits())
+        formats.extract("training/wheel-building.pptx", data, Limits())
 
 
 def test_damaged_zip_is_corrupt():

@@ -21,6 +21,7 @@ from pipeline.errors import (
 from pipeline.formats.docx import DOCX_TYPE, extract_docx
 from pipeline.formats.html import HTML_TYPE, extract_html
 from pipeline.formats.pdf import PDF_TYPE, extract_pdf, find_pdf_header
+from pipeline.formats.slides import PPTX_TYPE, extract_pptx
 from pipeline.formats.text import (
     MARKDOWN_TYPE,
     PLAIN_TEXT_TYPE,
@@ -70,6 +71,14 @@ def _check_docx(data: bytes) -> None:
         )
 
 
+def _check_pptx(data: bytes) -> None:
+    if not data.startswith(b"PK"):
+        raise CorruptDocument(
+            "not a PowerPoint .pptx (which is a zip archive); it looks like "
+            f"{describe_content(data)}"
+        )
+
+
 def _check_html(data: bytes) -> None:
     # Any text may be a page (the parser wraps bare text), but not a known binary format.
     described = describe_content(data)
@@ -81,6 +90,7 @@ def _check_html(data: bytes) -> None:
 FORMATS: tuple[Format, ...] = (
     Format(PDF_TYPE, (".pdf",), lambda data, limits: extract_pdf(data), _check_pdf),
     Format(DOCX_TYPE, (".docx",), extract_docx, _check_docx),
+    Format(PPTX_TYPE, (".pptx",), extract_pptx, _check_pptx),
     Format(PLAIN_TEXT_TYPE, (".txt", ".text"), lambda data, limits: extract_plain_text(data)),
     Format(MARKDOWN_TYPE, (".md", ".markdown"), lambda data, limits: extract_markdown(data)),
     Format(WEBVTT_TYPE, (".vtt",), lambda data, limits: extract_webvtt(data)),

@@ -110,16 +110,10 @@ def _open_checked(data: bytes, limits: Limits) -> Any:
     try:
         archive = zipfile.ZipFile(io.BytesIO(data))
     except zipfile.BadZipFile as error:
-        # Imported here: pipeline.formats imports this module while it is being set up.
-        from pipeline.formats import describe_content
-
-        described = describe_content(data)
-        if described in ("a zip archive", "an empty zip archive"):
-            raise CorruptDocument(
-                f"not a PowerPoint .pptx: the zip container is damaged ({error})"
-            ) from error
+        # Bytes that are not a zip at all are refused earlier, by the format table's check,
+        # which says what they look like; here the container itself is damaged.
         raise CorruptDocument(
-            f"not a PowerPoint .pptx (which is a zip archive); it looks like {described}"
+            f"not a PowerPoint .pptx: the zip container is damaged ({error})"
         ) from error
     with archive:
         _check_container(archive, limits)
