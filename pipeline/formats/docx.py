@@ -43,7 +43,6 @@ from __future__ import annotations
 
 import io
 import re
-import zipfile
 from collections.abc import Iterator
 from typing import Any
 
@@ -58,10 +57,10 @@ from docx.text.paragraph import Paragraph
 
 from pipeline.errors import (
     CorruptDocument,
-    DocumentTooLarge,
     EmptyDocument,
     UnsupportedDocument,
 )
+from pipeline.formats.container import open_checked_zip
 from pipeline.formats.text import normalise_text
 from pipeline.records import (
     HEADING,
@@ -79,9 +78,6 @@ DOCX_TYPE = "application/vnd.openxmlformats-officedocument.wordprocessingml.docu
 MAIN_PART = "word/document.xml"
 # Parts smaller than this are not ratio-checked: small XML compresses 20-50x routinely, and a
 # small part cannot exhaust memory whatever its ratio.
-_RATIO_CHECK_MIN_BYTES = 1024 * 1024
-_SCAN_CHUNK = 64 * 1024
-_DOCTYPE_MARKERS = (b"<!DOCTYPE", b"<!ENTITY")
 _HEADING_STYLE = re.compile(r"^heading\s*([1-9])$", re.IGNORECASE)
 _TITLE_STYLE = "title"
 
@@ -141,68 +137,15 @@ _FALLBACK_TAG = f"{_MARKUP_COMPATIBILITY}Fallback"
 _CHOICE_TAG = f"{_MARKUP_COMPATIBILITY}Choice"
 
 
-def _check_container(archive: zipfile.ZipFile, limits: Limits) -> None:
-    members = archive.infolist()
-    total = sum(member.file_size for member in members)
-    if total > limits.max_inflated_bytes:
-        raise DocumentTooLarge(
-            f"the .docx would inflate to {total:,} bytes, over the limit of "
-            f"{limits.max_inflated_bytes:,} bytes"
-        )
-    for member in members:
-        if member.file_size < _RATIO_CHECK_MIN_BYTES:
-            continue
-        ratio = member.file_size / max(member.compress_size, 1)
-        if ratio > limits.max_inflate_ratio:
-            raise DocumentTooLarge(
-                f"part {member.filename} inflates {ratio:,.0f} times ({member.file_size:,} bytes), "
-                f"over the limit of {limits.max_inflate_ratio:,.0f} times; it looks like a zip bomb"
-            )
-    names = {member.filename for member in members}
-    if MAIN_PART not in names:
-        raise CorruptDocument(f"not a Word document: the .docx has no {MAIN_PART} part")
-
-
-def _xml_part_has_doctype(archive: zipfile.ZipFile, member: zipfile.ZipInfo) -> bool:
-    """Scan one part in pieces, so a large part is never held in memory whole."""
-    with archive.open(member) as stream:
-        head = stream.read(2)
-        if head in (b"\xff\xfe", b"\xfe\xff"):  # UTF-16 XML: decode before searching
-            text = (head + stream.read()).decode("utf-16", errors="replace").encode("utf-8")
-            return any(marker in text for marker in _DOCTYPE_MARKERS)
-        carry = head
-        while True:
-            piece = stream.read(_SCAN_CHUNK)
-            window = carry + piece
-            if any(marker in window for marker in _DOCTYPE_MARKERS):
-                return True
-            if not piece:
-                return False
-            carry = window[-16:]  # longer than any marker, so one split across pieces is seen
-
-
-def _check_no_doctype(archive: zipfile.ZipFile) -> None:
-    for member in archive.infolist():
-        if member.filename.endswith((".xml", ".rels")) and _xml_part_has_doctype(archive, member):
-            raise UnsupportedDocument(
-                f"part {member.filename} declares a DOCTYPE, which Word documents must not "
-                "contain; text after an entity would be lost, so the file is refused"
-            )
-
-
 def _open_checked(data: bytes, limits: Limits) -> WordDocument:
-    try:
-        archive = zipfile.ZipFile(io.BytesIO(data))
-    except zipfile.BadZipFile as error:
-        raise CorruptDocument(
-            f"not a Word .docx: the zip container is damaged ({error})"
-        ) from error
-    with archive:
-        _check_container(archive, limits)
-        try:
-            _check_no_doctype(archive)
-        except (zipfile.BadZipFile, EOFError, OSError, ValueError, NotImplementedError) as error:
-            raise CorruptDocument(f"damaged .docx: a part cannot be inflated ({error})") from error
+    open_checked_zip(
+        data,
+        limits,
+        label=".docx",
+        kind="a Word document",
+        required=(MAIN_PART,),
+        doctype_error=UnsupportedDocument,
+    ).close()
     try:
         return docx.Document(io.BytesIO(data))
     except ValueError as error:

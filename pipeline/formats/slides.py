@@ -37,7 +37,6 @@ pictures, charts or SmartArt. ``Extracted.title`` is the core properties' title 
 from __future__ import annotations
 
 import io
-import zipfile
 from collections.abc import Iterator
 from typing import Any
 
@@ -46,8 +45,8 @@ from pptx.enum.shapes import PP_PLACEHOLDER
 from pptx.oxml.ns import qn
 from pptx.shapes.group import GroupShape
 
-from pipeline.errors import CorruptDocument, DocumentTooLarge, EmptyDocument, UnsupportedDocument
-from pipeline.formats.docx import _RATIO_CHECK_MIN_BYTES, _xml_part_has_doctype
+from pipeline.errors import CorruptDocument, EmptyDocument, UnsupportedDocument
+from pipeline.formats.container import open_checked_zip
 from pipeline.formats.text import normalise_text
 from pipeline.records import (
     HEADING,
@@ -76,51 +75,12 @@ _NO_BULLET_TAG = qn("a:buNone")
 _UNPLACED = 1 << 62
 
 
-def _check_container(archive: zipfile.ZipFile, limits: Limits) -> None:
-    members = archive.infolist()
-    total = sum(member.file_size for member in members)
-    if total > limits.max_inflated_bytes:
-        raise DocumentTooLarge(
-            f"the .pptx would inflate to {total:,} bytes, over the limit of "
-            f"{limits.max_inflated_bytes:,} bytes"
-        )
-    for member in members:
-        if member.file_size < _RATIO_CHECK_MIN_BYTES:
-            continue
-        ratio = member.file_size / max(member.compress_size, 1)
-        if ratio > limits.max_inflate_ratio:
-            raise DocumentTooLarge(
-                f"part {member.filename} inflates {ratio:,.0f} times ({member.file_size:,} bytes), "
-                f"over the limit of {limits.max_inflate_ratio:,.0f} times; it looks like a zip bomb"
-            )
-    if MAIN_PART not in {member.filename for member in members}:
-        raise CorruptDocument(f"not a PowerPoint presentation: the .pptx has no {MAIN_PART} part")
-
-
-def _check_no_doctype(archive: zipfile.ZipFile) -> None:
-    for member in archive.infolist():
-        if member.filename.endswith((".xml", ".rels")) and _xml_part_has_doctype(archive, member):
-            raise CorruptDocument(
-                f"part {member.filename} declares a DOCTYPE or entity, which PowerPoint files "
-                "must not contain; it is refused unread, so no entity is expanded"
-            )
-
-
 def _open_checked(data: bytes, limits: Limits) -> Any:
-    try:
-        archive = zipfile.ZipFile(io.BytesIO(data))
-    except zipfile.BadZipFile as error:
-        # Bytes that are not a zip at all are refused earlier, by the format table's check,
-        # which says what they look like; here the container itself is damaged.
-        raise CorruptDocument(
-            f"not a PowerPoint .pptx: the zip container is damaged ({error})"
-        ) from error
-    with archive:
-        _check_container(archive, limits)
-        try:
-            _check_no_doctype(archive)
-        except (zipfile.BadZipFile, EOFError, OSError, ValueError, NotImplementedError) as error:
-            raise CorruptDocument(f"damaged .pptx: a part cannot be inflated ({error})") from error
+    # Bytes that are not a zip at all are refused earlier, by the format table's check, which
+    # says what they look like; here the container itself is checked.
+    open_checked_zip(
+        data, limits, label=".pptx", kind="a PowerPoint presentation", required=(MAIN_PART,)
+    ).close()
     try:
         return pptx.Presentation(io.BytesIO(data))
     except ValueError as error:
