@@ -158,5 +158,5 @@ def test_file_over_the_size_limit_is_too_large():
 
 
 def test_unsupported_suffix_is_unsupported():
-    with pytest.raises(UnsupportedDocument, match=r"\.xlsx"):
-        extract("prices.xlsx", b"PK\x03\x04")
+    with pytest.raises(UnsupportedDocument, match=r"\.dwg"):
+        extract("frame-jig.dwg", b"AC1032")

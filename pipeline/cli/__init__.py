@@ -346,7 +346,10 @@ def build_parser() -> argparse.ArgumentParser:
         "--type",
         action="append",
         metavar="SUFFIX",
-        help="only documents of this format: pdf, docx, pptx, md, txt, vtt, srt, html (repeatable)",
+        help=(
+            "only documents of this format: pdf, docx, pptx, xlsx, csv, tsv, md, txt, vtt, srt, "
+            "html (repeatable)"
+        ),
     )
     p.add_argument(
         "--since",

@@ -21,6 +21,15 @@ from pipeline.errors import (
 from pipeline.formats.docx import DOCX_TYPE, extract_docx
 from pipeline.formats.html import HTML_TYPE, extract_html
 from pipeline.formats.pdf import PDF_TYPE, extract_pdf, find_pdf_header
+from pipeline.formats.sheets import (
+    CSV_TYPE,
+    TSV_TYPE,
+    XLSX_TYPE,
+    check_xlsx_bytes,
+    extract_csv,
+    extract_tsv,
+    extract_xlsx,
+)
 from pipeline.formats.slides import PPTX_TYPE, extract_pptx
 from pipeline.formats.text import (
     MARKDOWN_TYPE,
@@ -91,6 +100,9 @@ FORMATS: tuple[Format, ...] = (
     Format(PDF_TYPE, (".pdf",), lambda data, limits: extract_pdf(data), _check_pdf),
     Format(DOCX_TYPE, (".docx",), extract_docx, _check_docx),
     Format(PPTX_TYPE, (".pptx",), extract_pptx, _check_pptx),
+    Format(XLSX_TYPE, (".xlsx",), extract_xlsx, check_xlsx_bytes),
+    Format(CSV_TYPE, (".csv",), extract_csv),
+    Format(TSV_TYPE, (".tsv", ".tab"), extract_tsv),
     Format(PLAIN_TEXT_TYPE, (".txt", ".text"), lambda data, limits: extract_plain_text(data)),
     Format(MARKDOWN_TYPE, (".md", ".markdown"), lambda data, limits: extract_markdown(data)),
     Format(WEBVTT_TYPE, (".vtt",), lambda data, limits: extract_webvtt(data)),

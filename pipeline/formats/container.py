@@ -33,7 +33,7 @@ RATIO_CHECK_MIN_BYTES = 1024 * 1024
 _SCAN_CHUNK = 64 * 1024
 _DOCTYPE_MARKERS = (b"<!DOCTYPE", b"<!ENTITY")
 _ENTITY_MARKERS = (b"<!ENTITY",)
-_XML_SUFFIXES = (".xml", ".rels", ".xhtml", ".htm", ".html", ".opf", ".ncx")
+_XML_SUFFIXES = (".xml", ".rels", ".vml", ".xhtml", ".htm", ".html", ".opf", ".ncx")
 
 #: What ``zipfile`` raises while inflating a damaged part.
 INFLATE_ERRORS = (zipfile.BadZipFile, EOFError, OSError, ValueError, NotImplementedError)
