@@ -160,3 +160,19 @@ def test_file_over_the_size_limit_is_too_large():
 def test_unsupported_suffix_is_unsupported():
     with pytest.raises(UnsupportedDocument, match=r"\.dwg"):
         extract("frame-jig.dwg", b"AC1032")
+
+
+@pytest.mark.parametrize(
+    ("name", "kind"),
+    [
+        ("parts.xlsx", "Excel .xlsx"),
+        ("saddle-fitting.pptx", "PowerPoint .pptx"),
+        ("workshop-manual.epub", "EPUB book"),
+        ("ecn-1142.docx", "Word .docx"),
+    ],
+)
+def test_zip_based_formats_saved_as_text_say_what_the_bytes_are(name, kind):
+    # Every zip-based format is refused by the format table before its parser runs, with the
+    # same sentence shape: what it should be and what the bytes look like.
+    with pytest.raises(CorruptDocument, match=f"not an? {kind} .*zip archive.*plain text"):
+        extract(name, b"Frame serial MCW-0042 passed inspection.\n")

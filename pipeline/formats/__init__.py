@@ -19,6 +19,7 @@ from pipeline.errors import (
     UnsupportedDocument,
 )
 from pipeline.formats.docx import DOCX_TYPE, extract_docx
+from pipeline.formats.epub import EPUB_TYPE, extract_epub
 from pipeline.formats.html import HTML_TYPE, extract_html
 from pipeline.formats.pdf import PDF_TYPE, extract_pdf, find_pdf_header
 from pipeline.formats.sheets import (
@@ -88,6 +89,13 @@ def _check_pptx(data: bytes) -> None:
         )
 
 
+def _check_epub(data: bytes) -> None:
+    if not data.startswith(b"PK"):
+        raise CorruptDocument(
+            f"not an EPUB book (which is a zip archive); it looks like {describe_content(data)}"
+        )
+
+
 def _check_html(data: bytes) -> None:
     # Any text may be a page (the parser wraps bare text), but not a known binary format.
     described = describe_content(data)
@@ -101,6 +109,7 @@ FORMATS: tuple[Format, ...] = (
     Format(DOCX_TYPE, (".docx",), extract_docx, _check_docx),
     Format(PPTX_TYPE, (".pptx",), extract_pptx, _check_pptx),
     Format(XLSX_TYPE, (".xlsx",), extract_xlsx, check_xlsx_bytes),
+    Format(EPUB_TYPE, (".epub",), extract_epub, _check_epub),
     Format(CSV_TYPE, (".csv",), extract_csv),
     Format(TSV_TYPE, (".tsv", ".tab"), extract_tsv),
     Format(PLAIN_TEXT_TYPE, (".txt", ".text"), lambda data, limits: extract_plain_text(data)),
