@@ -33,7 +33,7 @@ BODY = (
     "the down tube.\n"
     "Fit the new guide before the bottom bracket goes in.\n"
     "\n"
-    "Old stock guides go back to stores, shelf B4.\n"
+    "Old stock guides go back to stores, shelf B4 — torque 2 N·m.\n"
     "\n\n"
     "Questions to the workshop office.\n"
 )
@@ -184,6 +184,47 @@ def test_nested_forwards_are_capped_with_a_warning():
     assert headings == [f"Level {n}" for n in range(MAX_DEPTH + 1)]
     assert len(result.warnings) == 1
     assert f"depth {MAX_DEPTH + 1}" in result.warnings[0]
+
+
+def test_mail_forwarded_as_eml_file_and_as_whole_body():
+    inner = EmailMessage()
+    inner["Subject"] = "Stores count ECN-0412"
+    inner.set_content("Forty guides left on shelf B4.")
+    outer = EmailMessage()
+    outer["Subject"] = "Fwd: stores count"
+    outer.set_content("See the count below.")
+    outer.add_attachment(inner.as_bytes(), "application", "octet-stream", filename="count.eml")
+    result = extract_eml(outer.as_bytes(), Limits())
+    # Reference: compat32 payload of the inner mail's own text/plain part.
+    expected = _reference_paragraphs(_reference_body(inner.as_bytes()).decode("utf-8"))
+    assert [s.text for s in result.segments if s.anchor.heading == inner["Subject"]] == [
+        inner["Subject"],
+        *expected,
+    ]
+
+    whole = b"Subject: Fwd bare\r\nContent-Type: message/rfc822\r\n\r\n" + inner.as_bytes()
+    headings = [s.text for s in extract_eml(whole, Limits()).segments if s.kind == HEADING]
+    assert headings == ["Fwd bare", inner["Subject"]]
+
+
+def test_parts_nested_past_the_parser_are_corrupt_not_a_crash():
+    body = b"Content-Type: text/plain\r\n\r\ndeep text\r\n"
+    for level in range(2000):
+        boundary = b"b%d" % level
+        body = (
+            b'Content-Type: multipart/mixed; boundary="' + boundary + b'"\r\n\r\n--'
+            + boundary + b"\r\n" + body + b"\r\n--" + boundary + b"--\r\n"
+        )  # fmt: skip
+    with pytest.raises(CorruptDocument, match="nests MIME parts"):
+        extract_eml(b"Subject: deep\r\n" + body, Limits())
+
+
+def test_unknown_charset_in_an_encoded_word_header():
+    data = (
+        b"Subject: =?x-no-such-charset?q?Frame_check?=\r\nFrom: qc@marrowby.example\r\n\r\nok\r\n"
+    )
+    result = extract_eml(data, Limits())
+    assert "Frame" in result.title and "check" in result.title
 
 
 def test_corrupt_docx_attachment_warns_and_mail_is_still_indexed():

@@ -17,7 +17,8 @@ What is read, in order (every body segment's ``Anchor.heading`` is the mail's su
    with a warning that names its depth.
 
 A charset Python does not know is decoded as UTF-8 with replacement characters, never an error.
-Bytes without any mail header line raise ``CorruptDocument``; a mail with no subject, body or
+Bytes without any mail header line raise ``CorruptDocument``, as does a mail whose MIME parts nest
+deeper than the stdlib parser can recurse (about a thousand levels); a mail with no subject, body or
 attachment text raises ``EmptyDocument``. ``Extracted.title`` is the subject.
 """
 
@@ -55,6 +56,9 @@ _MAIL_HEADERS = (
 )
 _ADDRESS_LINE = (("From", "from"), ("To", "to"), ("Date", "date"))
 _FALLBACK_CHARSET = "utf-8"
+# The stdlib parser and get_body() recurse once per nested MIME part; past Python's recursion
+# limit (about 1,000 levels, measured here as failing at 2,000) they cannot read the mail.
+_TOO_DEEP = "the mail nests MIME parts deeper than the e-mail parser can read"
 
 
 def _parse(data: bytes) -> EmailMessage:
@@ -162,18 +166,26 @@ class _Reader:
             self.segments.extend(_html_segments(body, heading, self.warnings))
 
     def _read_attachments(self, message: Message, depth: int) -> None:
+        if message.get_content_type() == "message/rfc822":
+            # The whole body is one attached message (a mail forwarded as the message itself).
+            self._read_inner(message, depth)
+            return
         if not isinstance(message, EmailMessage) or not message.is_multipart():
             return
         for part in message.iter_attachments():
             filename = part.get_filename() or ""
             if part.get_content_type() == "message/rfc822":
-                inner = part.get_payload()
-                if isinstance(inner, list) and inner and isinstance(inner[0], Message):
-                    self._read_attached_mail(inner[0], depth + 1)
+                self._read_inner(part, depth)
             elif filename.lower().endswith(".eml"):
+                # Parsed here rather than through the format table, so the depth cap holds.
                 self._read_attached_mail(_parse(_payload(part)), depth + 1)
             elif filename:
                 self._read_file(filename, _payload(part))
+
+    def _read_inner(self, part: Message, depth: int) -> None:
+        inner = part.get_payload()
+        if isinstance(inner, list) and inner and isinstance(inner[0], Message):
+            self._read_attached_mail(inner[0], depth + 1)
 
     def _read_attached_mail(self, message: Message, depth: int) -> None:
         if depth > MAX_DEPTH:
@@ -185,6 +197,7 @@ class _Reader:
         self.read_message(message, depth)
 
     def _read_file(self, filename: str, data: bytes) -> None:
+        """Extract a file attachment through the format table, or skip it silently."""
         # Imported here: the format table imports this module.
         from pipeline.formats import extract, media_type_for
 
@@ -210,13 +223,19 @@ def extract_eml(data: bytes, limits: Limits) -> Extracted:
     """
     if not data.strip():
         raise EmptyDocument("empty file")
-    message = _parse(data)
+    try:
+        message = _parse(data)
+    except RecursionError:
+        raise CorruptDocument(_TOO_DEEP) from None
     if not any(name in message for name in _MAIL_HEADERS):
         raise CorruptDocument(
             "not an e-mail message: it has no header lines such as From, To, Subject or Date"
         )
     reader = _Reader(limits)
-    subject = reader.read_message(message, depth=0)
+    try:
+        subject = reader.read_message(message, depth=0)
+    except RecursionError:
+        raise CorruptDocument(_TOO_DEEP) from None
     # The From/To/Date line alone is not text worth indexing.
     if len(reader.segments) == reader.address_lines:
         raise EmptyDocument("the mail has no subject, body text or readable attachment")
