@@ -23,6 +23,8 @@ run search "how do I return a damaged frame" -k 2
 run search "spoke tension when truing a wheel" -k 2
 run search "what changed in the brake hose routing" -k 1
 run search "which oil goes in the HB2 brake" -k 1
+run search "price of HB2 brake pads" -k 1
+run search "stem faceplate bolt torque on the new card" -k 1
 
 say "3. Nothing changed: the second sync reads no file and embeds nothing"
 run sync "$SHARE"

@@ -33,7 +33,7 @@ MANUAL = CORPUS / "manuals" / "workshop-service-manual.pdf"
 
 # The formats the extractor reads (the README's list); anything else in the corpus would be a
 # stray non-document file that the demo would index or skip by surprise.
-DOCUMENT_SUFFIXES = {".pdf", ".docx", ".md", ".txt", ".vtt", ".srt"}
+DOCUMENT_SUFFIXES = {".pdf", ".docx", ".pptx", ".xlsx", ".eml", ".md", ".txt", ".vtt", ".srt"}
 
 # WordprocessingML main namespace, ECMA-376 Part 1, section 17 (from memory).
 W_NS = "{http://schemas.openxmlformats.org/wordprocessingml/2006/main}"
@@ -70,7 +70,7 @@ def test_corpus_holds_between_12_and_20_documents_and_nothing_else() -> None:
 def test_generator_reproduces_the_committed_files_byte_for_byte(tmp_path: Path) -> None:
     # Proves both that the committed binaries are current and that regeneration is stable.
     written = load_generator().write_corpus(tmp_path)
-    assert len(written) == 6
+    assert len(written) == 9
     for path in written:
         committed = CORPUS / path.relative_to(tmp_path)
         assert committed.read_bytes() == path.read_bytes(), f"{committed} is out of date"
@@ -198,3 +198,72 @@ def test_other_text_documents_are_strict_utf8() -> None:
         for path in corpus_files(suffix):
             if path.name not in special:
                 path.read_bytes().decode("utf-8")
+
+
+# ---------------------------------------------------------------- slides, spreadsheet, e-mail
+
+
+def test_spreadsheet_rows_match_pandas() -> None:
+    # Reference: pandas.read_excel (openpyxl engine), a sheet per family with its header row.
+    import pandas
+
+    from pipeline.formats import extract
+
+    path = CORPUS / "parts" / "spares-price-list.xlsx"
+    sheets = pandas.read_excel(path, sheet_name=None, dtype=str)
+    expected = [
+        (name, ", ".join(f"{column}: {value}" for column, value in row.items()))
+        for name, frame in sheets.items()
+        for _, row in frame.iterrows()
+    ]
+    got = [(s.anchor.heading, s.text) for s in extract(path.name, path.read_bytes()).segments]
+    assert got == expected
+    assert len(expected) >= 10
+
+
+def test_deck_text_matches_a_raw_reading_of_the_slide_parts() -> None:
+    # Reference: the a:t text runs of each ppt/slides/slideN.xml, read with ElementTree
+    # (DrawingML main namespace, ECMA-376 Part 1, 20.1; from memory).
+    from pipeline.formats import extract
+
+    path = CORPUS / "training" / "workshop-induction.pptx"
+    ns = "{http://schemas.openxmlformats.org/drawingml/2006/main}t"
+    extracted = extract(path.name, path.read_bytes()).segments
+    with zipfile.ZipFile(path) as archive:
+        slides = sorted(
+            (n for n in archive.namelist() if re.fullmatch(r"ppt/slides/slide\d+\.xml", n)),
+            key=lambda n: int(re.findall(r"\d+", n)[0]),
+        )
+        assert len(slides) >= 4
+        for number, part in enumerate(slides, start=1):
+            runs = [e.text for e in ElementTree.fromstring(archive.read(part)).iter(ns) if e.text]
+            ours = " ".join(
+                s.text.replace(" | ", " ")
+                for s in extracted
+                if s.anchor.page == number and not s.text.startswith("Notes: ")
+            )
+            assert ours.split() == " ".join(runs).split(), part
+
+
+def test_mail_body_and_pdf_attachment_match_the_email_package_and_pdfminer() -> None:
+    # References: the email package's compat32 parser for the body, pdfminer.six for the
+    # attached PDF's text.
+    import email
+    import email.policy
+    import io
+
+    from pipeline.formats import extract
+
+    path = CORPUS / "notices" / "ECN-0156-torque-card.eml"
+    message = email.message_from_bytes(path.read_bytes(), policy=email.policy.compat32)
+    body, attachment = message.get_payload()
+    segments = extract(path.name, path.read_bytes()).segments
+    body_text = body.get_payload(decode=True).decode("utf-8")
+    ours_body = " ".join(s.text for s in segments if s.anchor.page is None)
+    assert " ".join(body_text.split()) in ours_body
+    pdf_text = extract_text(io.BytesIO(attachment.get_payload(decode=True)))
+    ours_pdf = " ".join(s.text for s in segments if s.anchor.page == 1)
+    assert ours_pdf.split() == pdf_text.split()
+    assert {s.anchor.heading.split(" > ")[0] for s in segments if s.anchor.page == 1} == {
+        "ECN-0156-torque-card.pdf"
+    }

@@ -21,6 +21,7 @@ from pipeline.errors import (
 from pipeline.formats.docx import DOCX_TYPE, extract_docx
 from pipeline.formats.epub import EPUB_TYPE, extract_epub
 from pipeline.formats.html import HTML_TYPE, extract_html
+from pipeline.formats.mail import EML_TYPE, extract_eml
 from pipeline.formats.pdf import PDF_TYPE, extract_pdf, find_pdf_header
 from pipeline.formats.sheets import (
     CSV_TYPE,
@@ -110,6 +111,7 @@ FORMATS: tuple[Format, ...] = (
     Format(PPTX_TYPE, (".pptx",), extract_pptx, _check_pptx),
     Format(XLSX_TYPE, (".xlsx",), extract_xlsx, check_xlsx_bytes),
     Format(EPUB_TYPE, (".epub",), extract_epub, _check_epub),
+    Format(EML_TYPE, (".eml",), extract_eml),
     Format(CSV_TYPE, (".csv",), extract_csv),
     Format(TSV_TYPE, (".tsv", ".tab"), extract_tsv),
     Format(PLAIN_TEXT_TYPE, (".txt", ".text"), lambda data, limits: extract_plain_text(data)),
