@@ -23,6 +23,7 @@ from pipeline.formats.epub import EPUB_TYPE, extract_epub
 from pipeline.formats.html import HTML_TYPE, extract_html
 from pipeline.formats.mail import EML_TYPE, extract_eml
 from pipeline.formats.pdf import PDF_TYPE, extract_pdf, find_pdf_header
+from pipeline.formats.rtf import RTF_TYPE, extract_rtf
 from pipeline.formats.sheets import (
     CSV_TYPE,
     TSV_TYPE,
@@ -118,6 +119,7 @@ FORMATS: tuple[Format, ...] = (
     Format(MARKDOWN_TYPE, (".md", ".markdown"), lambda data, limits: extract_markdown(data)),
     Format(WEBVTT_TYPE, (".vtt",), lambda data, limits: extract_webvtt(data)),
     Format(SRT_TYPE, (".srt",), lambda data, limits: extract_srt(data)),
+    Format(RTF_TYPE, (".rtf",), lambda data, limits: extract_rtf(data)),
     Format(HTML_TYPE, (".html", ".htm"), lambda data, limits: extract_html(data), _check_html),
 )
 _BY_SUFFIX: dict[str, Format] = {s: f for f in FORMATS for s in f.suffixes}
