@@ -243,7 +243,7 @@ PARTS_BODY = (
     '<table:table-column table:number-columns-repeated="4"/>'
     "<table:table-row>"
     f"{_cell('Part')}{_cell('Description')}{_cell('Price')}{_cell('Qty')}</table:table-row>"
-    f"<table:table-row>{_cell('HB2-114')}{_cell('Headset bearing')}{_float('12.4', '12.40')}"
+    f"<table:table-row>{_cell('HB2-114')}{_cell('Headset bearing')}{_float('12.40')}"
     f"{_float('20', '20.00')}</table:table-row>"
     '<table:table-row table:number-rows-repeated="3"><table:table-cell '
     'table:number-columns-repeated="4"/></table:table-row>'
