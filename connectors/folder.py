@@ -111,6 +111,8 @@ class FolderSource:
     # Files the last full listing left out because upwell does not read their type, counted by
     # suffix ("" for none), so a sync and status can say what the index does not cover.
     skipped: dict[str, int] = field(default_factory=dict, compare=False, hash=False)
+    # Whether images and PDF pages without a text layer are read by OCR (``ocr = false``).
+    ocr: bool = True
 
     @cached_property
     def _excluded(self) -> _Globs:

@@ -25,6 +25,7 @@ run search "what changed in the brake hose routing" -k 1
 run search "which oil goes in the HB2 brake" -k 1
 run search "price of HB2 brake pads" -k 1
 run search "stem faceplate bolt torque on the new card" -k 1
+run search "when may frames be sprayed in booth 2" -k 1
 
 say "3. Nothing changed: the second sync reads no file and embeds nothing"
 run sync "$SHARE"

@@ -166,6 +166,8 @@ class Limits:
     # Total uncompressed size of a .docx's parts, and the largest compression ratio of one part.
     max_inflated_bytes: int = 256 * 1024 * 1024
     max_inflate_ratio: float = 200.0
+    # Images and PDF pages without a text layer are read by OCR; a source can switch it off.
+    ocr: bool = True
 
 
 def segments_to_json(segments: tuple[Segment, ...] | list[Segment]) -> str:

@@ -169,6 +169,9 @@ def test_unsupported_suffix_is_unsupported():
         ("saddle-fitting.pptx", "PowerPoint .pptx"),
         ("workshop-manual.epub", "EPUB book"),
         ("ecn-1142.docx", "Word .docx"),
+        ("ecn-1142.odt", "OpenDocument text .odt"),
+        ("parts.ods", "OpenDocument spreadsheet .ods"),
+        ("induction.odp", "OpenDocument presentation .odp"),
     ],
 )
 def test_zip_based_formats_saved_as_text_say_what_the_bytes_are(name, kind):

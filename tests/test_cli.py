@@ -199,8 +199,8 @@ def test_readme_demo_runs_as_written(tmp_path):
     )
     assert len(syncs) == 4
     first, unchanged, edit, remove_and_move = [tuple(map(int, s)) for s in syncs]
-    assert first[0] == 17 and first[5] == 0 and first[6] >= 100
-    assert unchanged[4] == 17 and unchanged[6] == 0
+    assert first[0] == 18 and first[5] == 0 and first[6] >= 100
+    assert unchanged[4] == 18 and unchanged[6] == 0
     assert edit[1] == 1 and 1 <= edit[6] <= 3
     assert remove_and_move[2:4] == (1, 1) and remove_and_move[6] == 0
     assert "workshop-service-manual.pdf, p. 8" in out
@@ -208,6 +208,8 @@ def test_readme_demo_runs_as_written(tmp_path):
     # The spreadsheet row and the PDF attached to a saved e-mail are found with their anchors.
     assert "spares-price-list.xlsx, § Brakes" in out and "HB2-114" in out
     assert "ECN-0156-torque-card.eml, p. 1, § ECN-0156-torque-card.pdf" in out
+    # Text that only the scanned notice holds, found through OCR.
+    assert "paint-shop-noticeboard.png, p. 1" in out and "green lamp" in out
 
 
 def test_files_of_types_upwell_does_not_read_are_counted_by_suffix_not_skipped_silently(

@@ -33,7 +33,18 @@ MANUAL = CORPUS / "manuals" / "workshop-service-manual.pdf"
 
 # The formats the extractor reads (the README's list); anything else in the corpus would be a
 # stray non-document file that the demo would index or skip by surprise.
-DOCUMENT_SUFFIXES = {".pdf", ".docx", ".pptx", ".xlsx", ".eml", ".md", ".txt", ".vtt", ".srt"}
+DOCUMENT_SUFFIXES = {
+    ".pdf",
+    ".docx",
+    ".pptx",
+    ".xlsx",
+    ".eml",
+    ".png",
+    ".md",
+    ".txt",
+    ".vtt",
+    ".srt",
+}
 
 # WordprocessingML main namespace, ECMA-376 Part 1, section 17 (from memory).
 W_NS = "{http://schemas.openxmlformats.org/wordprocessingml/2006/main}"
@@ -70,7 +81,7 @@ def test_corpus_holds_between_12_and_20_documents_and_nothing_else() -> None:
 def test_generator_reproduces_the_committed_files_byte_for_byte(tmp_path: Path) -> None:
     # Proves both that the committed binaries are current and that regeneration is stable.
     written = load_generator().write_corpus(tmp_path)
-    assert len(written) == 9
+    assert len(written) == 10
     for path in written:
         committed = CORPUS / path.relative_to(tmp_path)
         assert committed.read_bytes() == path.read_bytes(), f"{committed} is out of date"
@@ -267,3 +278,15 @@ def test_mail_body_and_pdf_attachment_match_the_email_package_and_pdfminer() -> 
     assert {s.anchor.heading.split(" > ")[0] for s in segments if s.anchor.page == 1} == {
         "ECN-0156-torque-card.pdf"
     }
+
+
+def test_scanned_notice_is_read_by_ocr_close_to_the_text_it_was_drawn_from() -> None:
+    # Reference: the lines the generator drew; CER as in tests/test_formats_ocr.py.
+    from pipeline.formats import extract
+    from tests.test_formats_ocr import character_error_rate
+
+    path = CORPUS / "notices" / "paint-shop-noticeboard.png"
+    generator = load_generator()
+    found = extract(path.name, path.read_bytes())
+    recognised = " ".join(s.text for s in found.segments)
+    assert character_error_rate(recognised, " ".join(generator.PAINT_SHOP_NOTICE)) <= 0.02

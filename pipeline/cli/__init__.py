@@ -348,7 +348,7 @@ def build_parser() -> argparse.ArgumentParser:
         metavar="SUFFIX",
         help=(
             "only documents of this format: pdf, docx, pptx, xlsx, csv, tsv, md, txt, vtt, srt, "
-            "epub, eml, rtf, html (repeatable)"
+            "epub, eml, rtf, odt, ods, odp, html, png, jpg, tif (repeatable)"
         ),
     )
     p.add_argument(

@@ -52,6 +52,7 @@ class SourceConfig:
     every: float | None = None  # seconds between scheduled full scans; None: none
     include: tuple[str, ...] = ("**/*",)
     exclude: tuple[str, ...] = DEFAULT_EXCLUDE
+    ocr: bool = True  # images and PDF pages without a text layer are read by OCR
     options: Mapping[str, Any] = field(default_factory=dict, compare=False)
     file: Path | None = field(default=None, compare=False)
 
@@ -68,6 +69,7 @@ class SourceConfig:
                 include=self.include,
                 exclude=self.exclude,
                 suffixes=formats.SUPPORTED_SUFFIXES,
+                ocr=self.ocr,
             )
 
         def fail(key: str, problem: str) -> Any:
@@ -285,7 +287,7 @@ def _parse_service(check: _Checker, table: Mapping[str, Any]) -> ServiceConfig:
 
 
 _COMMON_SOURCE_KEYS = ("name", "kind", "watch", "every")
-_FOLDER_KEYS = ("path", "include", "exclude")
+_FOLDER_KEYS = ("path", "include", "exclude", "ocr")
 DEFAULT_POLL_EVERY = 15 * 60.0  # a source nothing can watch is scanned this often by default
 
 
@@ -321,6 +323,7 @@ def _parse_source(
             path=_resolve(base, check.string(f"{where}.path", table["path"])),
             watch=watch,
             every=every,
+            ocr=check.boolean(f"{where}.ocr", table["ocr"]) if "ocr" in table else True,
             include=check.patterns(f"{where}.include", table.get("include", ["**/*"])),
             # Configured excludes add to the defaults: editor and office temp files stay ignored.
             exclude=DEFAULT_EXCLUDE

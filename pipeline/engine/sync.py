@@ -13,6 +13,7 @@ written and its tombstones already logged, and writes only what is missing.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import time
 from collections.abc import Callable, Mapping, Sequence
@@ -288,7 +289,9 @@ class SyncEngine:
                     del pending_removals[candidate]
                     removals.append(candidate)
             try:
-                extracted, seg_json = self._extract(item, data, moved_from)
+                extracted, seg_json = self._extract(
+                    item, data, moved_from, ocr=getattr(source, "ocr", True)
+                )
                 chunks = chunk_segments(
                     item.doc_id,
                     extracted.segments,
@@ -537,7 +540,7 @@ class SyncEngine:
     # --- pieces ---------------------------------------------------------------------------------
 
     def _extract(
-        self, item: SourceItem, data: bytes, moved_from: str | None
+        self, item: SourceItem, data: bytes, moved_from: str | None, *, ocr: bool = True
     ) -> tuple[Extracted, str]:
         if moved_from is not None:
             # Same bytes as a document already extracted: reuse its stored segments.
@@ -546,7 +549,8 @@ class SyncEngine:
                 segments = segments_from_json(stored[0])
                 media_type = formats.media_type_for(item.key) or "application/octet-stream"
                 return Extracted(media_type=media_type, segments=segments), stored[0]
-        extracted = formats.extract(item.key, data, self.limits)
+        limits = self.limits if ocr else dataclasses.replace(self.limits, ocr=False)
+        extracted = formats.extract(item.key, data, limits)
         return extracted, segments_to_json(extracted.segments)
 
     def _embed(self, texts: list[str]) -> list[np.ndarray]:

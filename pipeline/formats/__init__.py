@@ -22,6 +22,15 @@ from pipeline.formats.docx import DOCX_TYPE, extract_docx
 from pipeline.formats.epub import EPUB_TYPE, extract_epub
 from pipeline.formats.html import HTML_TYPE, extract_html
 from pipeline.formats.mail import EML_TYPE, extract_eml
+from pipeline.formats.ocr import IMAGE_TYPES, extract_image
+from pipeline.formats.opendocument import (
+    ODP_TYPE,
+    ODS_TYPE,
+    ODT_TYPE,
+    extract_odp,
+    extract_ods,
+    extract_odt,
+)
 from pipeline.formats.pdf import PDF_TYPE, extract_pdf, find_pdf_header
 from pipeline.formats.rtf import RTF_TYPE, extract_rtf
 from pipeline.formats.sheets import (
@@ -98,6 +107,27 @@ def _check_epub(data: bytes) -> None:
         )
 
 
+def _image_extractor(media_type: str) -> Callable[[bytes, Limits], Extracted]:
+    def extract_one(data: bytes, limits: Limits) -> Extracted:
+        if not limits.ocr:
+            raise UnsupportedDocument("an image, and OCR is off for this source (ocr = false)")
+        return extract_image(data, media_type)
+
+    return extract_one
+
+
+def _zip_check(what: str) -> Callable[[bytes], None]:
+    """The format table's check for a zip-based format: refuse other bytes, saying what they are."""
+
+    def check(data: bytes) -> None:
+        if not data.startswith(b"PK"):
+            raise CorruptDocument(
+                f"not {what} (which is a zip archive); it looks like {describe_content(data)}"
+            )
+
+    return check
+
+
 def _check_html(data: bytes) -> None:
     # Any text may be a page (the parser wraps bare text), but not a known binary format.
     described = describe_content(data)
@@ -107,11 +137,14 @@ def _check_html(data: bytes) -> None:
 
 #: The one table of formats: adding a format is one row here and one extractor module.
 FORMATS: tuple[Format, ...] = (
-    Format(PDF_TYPE, (".pdf",), lambda data, limits: extract_pdf(data), _check_pdf),
+    Format(PDF_TYPE, (".pdf",), lambda data, limits: extract_pdf(data, ocr=limits.ocr), _check_pdf),
     Format(DOCX_TYPE, (".docx",), extract_docx, _check_docx),
     Format(PPTX_TYPE, (".pptx",), extract_pptx, _check_pptx),
     Format(XLSX_TYPE, (".xlsx",), extract_xlsx, check_xlsx_bytes),
     Format(EPUB_TYPE, (".epub",), extract_epub, _check_epub),
+    Format(ODT_TYPE, (".odt",), extract_odt, _zip_check("an OpenDocument text .odt")),
+    Format(ODS_TYPE, (".ods",), extract_ods, _zip_check("an OpenDocument spreadsheet .ods")),
+    Format(ODP_TYPE, (".odp",), extract_odp, _zip_check("an OpenDocument presentation .odp")),
     Format(EML_TYPE, (".eml",), extract_eml),
     Format(CSV_TYPE, (".csv",), extract_csv),
     Format(TSV_TYPE, (".tsv", ".tab"), extract_tsv),
@@ -119,6 +152,7 @@ FORMATS: tuple[Format, ...] = (
     Format(MARKDOWN_TYPE, (".md", ".markdown"), lambda data, limits: extract_markdown(data)),
     Format(WEBVTT_TYPE, (".vtt",), lambda data, limits: extract_webvtt(data)),
     Format(SRT_TYPE, (".srt",), lambda data, limits: extract_srt(data)),
+    *(Format(media, (suffix,), _image_extractor(media)) for suffix, media in IMAGE_TYPES.items()),
     Format(RTF_TYPE, (".rtf",), lambda data, limits: extract_rtf(data)),
     Format(HTML_TYPE, (".html", ".htm"), lambda data, limits: extract_html(data), _check_html),
 )

@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import io
 import re
+from typing import Any
 
 import pypdf
 from pypdf.errors import DependencyError, FileNotDecryptedError, PyPdfError, WrongPasswordError
@@ -136,11 +137,37 @@ def _metadata_title(reader: pypdf.PdfReader) -> str | None:
     return normalise_text(title) or None
 
 
-def extract_pdf(data: bytes) -> Extracted:
+def _ocr_page(page: Any, number: int) -> tuple[list[Segment], list[str]]:
+    """OCR of the images drawn on a page that has no text layer (a scan is one image a page)."""
+    from pipeline.formats import ocr
+
+    segments: list[Segment] = []
+    warnings: list[str] = []
+    try:
+        images = list(page.images)
+    except Exception as error:  # noqa: BLE001 - a damaged image stream is this page's warning
+        return [], [f"page {number}: its images could not be read for OCR ({error})"]
+    for image_file in images:
+        try:
+            image = ocr.open_image(image_file.data, f"image on page {number}")
+            image = image_file.image if image.format is None else image
+            lines = ocr.recognise(image, key=image_file.data)
+        except Exception as error:  # noqa: BLE001 - one bad image must not lose the page
+            warnings.append(f"page {number}: an image could not be read for OCR ({error})")
+            continue
+        found, warning = ocr.page_segments(lines, number)
+        segments.extend(found)
+        if warning:
+            warnings.append(warning)
+    return segments, warnings
+
+
+def extract_pdf(data: bytes, *, ocr: bool = True) -> Extracted:
     """Paragraphs of every page with ``anchor.page``; pages without text become warnings.
 
-    Raises ``CorruptDocument`` (truncated, damaged), ``EncryptedDocument`` (needs a password) or
-    ``NoTextLayer`` (no page has text).
+    A page without a text layer is read by OCR from the images drawn on it when ``ocr`` is on
+    (a page with a text layer never is). Raises ``CorruptDocument`` (truncated, damaged),
+    ``EncryptedDocument`` (needs a password) or ``NoTextLayer`` (no page has text, even by OCR).
     """
     reader = _open(data)
     try:
@@ -160,6 +187,13 @@ def extract_pdf(data: bytes) -> Extracted:
             warnings.append(f"page {number} could not be read ({type(error).__name__}: {error})")
             continue
         paragraphs = split_page_paragraphs(page_text)
+        if not paragraphs and ocr:
+            found, page_warnings = _ocr_page(page, number)
+            warnings.extend(page_warnings)
+            if found:
+                warnings.append(f"page {number} has no text layer; its text was read by OCR")
+                segments.extend(found)
+                continue
         if not paragraphs:
             warnings.append(f"page {number} has no text layer")
         segments.extend(Segment(text, Anchor(page=number), PARAGRAPH) for text in paragraphs)
@@ -169,8 +203,8 @@ def extract_pdf(data: bytes) -> Extracted:
                 f"damaged PDF: {unreadable} of {len(pages)} pages could not be read"
             )
         raise NoTextLayer(
-            f"no text layer on any of its {len(pages)} pages (scanned images?); "
-            "run OCR on it to make it searchable"
+            f"no text layer on any of its {len(pages)} pages (scanned images?), "
+            + ("and OCR found no text in it" if ocr else "OCR is off for this source")
         )
     return Extracted(
         media_type=PDF_TYPE,
