@@ -72,6 +72,7 @@ def test_bad_durations_are_refused(text):
         ('[[source]]\nname = "hb"\npath = "/x"\nkind = "ftp"\n', "source 'hb'.kind", "kind"),
         ('[[source]]\nname = "hb"\npath = "/x"\ninclude = "*.md"\n', "source 'hb'.include", "list"),
         ('[[source]]\nname = "hb"\npath = "/x"\nwatch = "yes"\n', "source 'hb'.watch", "true"),
+        ('[[source]]\nname = "hb"\npath = "/x"\nocr = "off"\n', "source 'hb'.ocr", "true"),
         (
             '[[source]]\nname = "hb"\npath = "/x"\n[[source]]\nname = "hb"\npath = "/y"\n',
             "source[1].name",
@@ -119,3 +120,25 @@ def test_upwell_config_env_and_sync_sources_from_the_file(tmp_path, monkeypatch,
     assert Path(tmp_path / "ix").is_dir()
     assert main(["sync", "--source", "nope"]) == 2
     assert "no source named 'nope'" in capsys.readouterr().err
+
+
+def test_ocr_false_reaches_the_folder_connector_and_an_image_is_skipped_with_the_reason(tmp_path):
+    from PIL import Image
+
+    from pipeline.index import Index
+
+    share = tmp_path / "share"
+    share.mkdir()
+    (share / "notes.md").write_text("# Notes\n\nThe seat clamp takes 6 Nm.\n")
+    Image.new("L", (40, 20), 255).save(share / "board.png")
+    path = write(
+        tmp_path / "upwell.toml",
+        f'[index]\npath = "{tmp_path / "idx"}"\n'
+        f'[[source]]\nname = "share"\npath = "{share}"\nocr = false\n',
+    )
+    config = load_config(path)
+    (source,) = config.sources
+    assert source.ocr is False and source.connector().ocr is False
+    report = Index(tmp_path / "idx").sync([source.connector()], yes=True)
+    failures = {item.path: item.reason for item in report.failures}
+    assert any("OCR is off" in reason for reason in failures.values()), failures
