@@ -9,6 +9,7 @@ INDEX_FOLDER = ".upwell"
 MODEL = "default"
 #: Where connectors keep what they remember between runs, inside the index folder.
 CONNECTOR_STATE_FOLDER = "connector-state"
+OCR_CACHE_FOLDER = "ocr-cache"  # OCR results by page-image hash, beside the connector state
 #: Documents per commit of ``upwell sync``: bounds the memory and the work one commit holds.
 BATCH_DOCUMENTS = 200
 #: Documents per commit in the service: smaller, so a stop waits for less.

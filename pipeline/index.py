@@ -17,6 +17,7 @@ import fnmatch
 import json
 import os
 import re
+import shutil
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -246,6 +247,14 @@ class Index:
         self._model_spec = model
         self._chunking = chunking
         self.limits = limits or Limits()
+        if self.limits.ocr_cache is None:
+            # Content-addressed by page-image hash, so indexes on one machine may share it.
+            ocr_cache = (
+                machine_folder(defaults.OCR_CACHE_FOLDER)
+                if isinstance(self.path, str)
+                else self.path / defaults.OCR_CACHE_FOLDER
+            )
+            self.limits = dataclasses.replace(self.limits, ocr_cache=str(ocr_cache))
         self.progress = progress or Progress(enabled=False)
         self.batch_documents = batch_documents
         self.max_removal_fraction = max_removal_fraction
@@ -910,7 +919,8 @@ class Index:
             tag_names = sorted(history.tags(store))
             message = (
                 f"Erasing {len(matched)} documents for good: {shown}.\n"
-                "Their chunks, cached vectors and stored text are deleted, and every earlier "
+                "Their chunks, cached vectors and stored text are deleted, the OCR cache is "
+                "emptied (it may hold their scanned text), and every earlier "
                 "version of the index is removed so none still holds them: all earlier rollback "
                 "points are lost"
                 + (f", and the tags {', '.join(tag_names)} are dropped" if tag_names else "")
@@ -923,6 +933,8 @@ class Index:
                 store, matched, commit_id=new_commit_id(), now=utc_now()
             )
             store.refresh()
+            if self.limits.ocr_cache:
+                shutil.rmtree(self.limits.ocr_cache, ignore_errors=True)
             return {"erased": matched, **result}
 
     def status(self) -> dict[str, Any]:

@@ -168,6 +168,8 @@ class Limits:
     max_inflate_ratio: float = 200.0
     # Images and PDF pages without a text layer are read by OCR; a source can switch it off.
     ocr: bool = True
+    # Folder where OCR results are kept by page-image hash across runs; None: this process only.
+    ocr_cache: str | None = None
 
 
 def segments_to_json(segments: tuple[Segment, ...] | list[Segment]) -> str:

@@ -14,6 +14,7 @@ import io
 import struct
 import textwrap
 import zlib
+from pathlib import Path
 
 import pytest
 from PIL import Image, ImageDraw, ImageFont
@@ -168,3 +169,38 @@ def test_a_truncated_image_is_damaged(kind):
 def test_bytes_that_are_no_image_are_damaged():
     with pytest.raises(CorruptDocument, match="not a readable image"):
         extract("photo.jpg", b"Frame serial MCW-0042 passed final inspection.\n")
+
+
+def test_a_later_run_reads_the_page_from_the_ocr_cache_folder_and_erase_empties_it(
+    tmp_path, monkeypatch
+):
+    from pipeline.index import Index
+
+    share = tmp_path / "share"
+    share.mkdir()
+    image = render("Frames are sprayed only when the green lamp is lit.", 200)
+    (share / "booth-2.pdf").write_bytes(pdf_bytes(image, 200))
+    index = Index(tmp_path / "idx")
+    index.sync([share], yes=True)
+    cache = Path(index.limits.ocr_cache)
+    assert len(list(cache.rglob("*.json"))) == 1
+    # A new process has an empty memory cache: stand for it by clearing this one, then count
+    # the engine's calls while a renamed copy with one more page is synced.
+    ocr._cache.clear()
+    calls = []
+    engine = ocr._get_engine()
+
+    def counting(*args, **kwargs):
+        calls.append(1)
+        return engine(*args, **kwargs)
+
+    monkeypatch.setattr(ocr, "_engine", counting)
+    second = render("Booth 1 is closed for filter changes.", 200)
+    both = io.BytesIO()
+    image.save(both, "PDF", resolution=200, save_all=True, append_images=[second])
+    (share / "booth-2.pdf").write_bytes(both.getvalue())
+    index.sync([share], yes=True)
+    assert len(calls) == 1  # only the new page was recognised
+    assert len(list(cache.rglob("*.json"))) == 2
+    index.erase(["share/booth-2.pdf"], yes=True)
+    assert not cache.exists()

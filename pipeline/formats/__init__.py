@@ -111,7 +111,7 @@ def _image_extractor(media_type: str) -> Callable[[bytes, Limits], Extracted]:
     def extract_one(data: bytes, limits: Limits) -> Extracted:
         if not limits.ocr:
             raise UnsupportedDocument("an image, and OCR is off for this source (ocr = false)")
-        return extract_image(data, media_type)
+        return extract_image(data, media_type, limits.ocr_cache)
 
     return extract_one
 
@@ -137,7 +137,12 @@ def _check_html(data: bytes) -> None:
 
 #: The one table of formats: adding a format is one row here and one extractor module.
 FORMATS: tuple[Format, ...] = (
-    Format(PDF_TYPE, (".pdf",), lambda data, limits: extract_pdf(data, ocr=limits.ocr), _check_pdf),
+    Format(
+        PDF_TYPE,
+        (".pdf",),
+        lambda data, limits: extract_pdf(data, ocr=limits.ocr, ocr_cache=limits.ocr_cache),
+        _check_pdf,
+    ),
     Format(DOCX_TYPE, (".docx",), extract_docx, _check_docx),
     Format(PPTX_TYPE, (".pptx",), extract_pptx, _check_pptx),
     Format(XLSX_TYPE, (".xlsx",), extract_xlsx, check_xlsx_bytes),

@@ -10,8 +10,10 @@ the line's confidence kept beside it. Lines under ``LOW_CONFIDENCE`` are kept (a
 still better found than lost) and counted; a page where most recognised characters are below it
 adds a warning, which the status view shows as a problem of that document.
 
-Results are cached in memory by the SHA-256 of the page image's bytes, so within one process a
-page seen twice (the same scan in two PDFs, a PDF whose other pages changed) is recognised once.
+Results are cached by the SHA-256 of the page image's bytes, in memory and in a file per page
+under the index's OCR cache folder, so a page seen twice (the same scan in two PDFs, a PDF whose
+other pages changed, in this run or a later one) is recognised once. ``erase`` empties that
+folder, since it may hold the text of the erased scans.
 A file that did not change, or was only renamed, is never re-extracted at all: the sync engine
 skips it by its content hash before any extractor runs.
 
@@ -25,9 +27,12 @@ from __future__ import annotations
 
 import hashlib
 import io
+import json
+import os
 import threading
 from collections import OrderedDict
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
 
 from pipeline.errors import CorruptDocument, DocumentTooLarge, EmptyDocument
@@ -92,13 +97,50 @@ def _to_rgb_array(image: Any) -> Any:
     return numpy.asarray(image.convert("RGB"))
 
 
-def recognise(image: Any, key: bytes | None = None) -> tuple[OcrLine, ...]:
-    """The text lines of one PIL image, top to bottom; cached by SHA-256 of ``key`` if given."""
+def _disk_path(cache_dir: str | None, digest: str | None) -> Path | None:
+    if cache_dir is None or digest is None:
+        return None
+    return Path(cache_dir) / digest[:2] / f"{digest}.json"
+
+
+def _read_disk(path: Path | None) -> tuple[OcrLine, ...] | None:
+    if path is None:
+        return None
+    try:
+        rows = json.loads(path.read_text(encoding="utf-8"))
+        return tuple(OcrLine(str(t), float(c), float(y), float(x)) for t, c, y, x in rows)
+    except (OSError, ValueError, TypeError):
+        return None  # absent or damaged: recognise again
+
+
+def _write_disk(path: Path | None, lines: tuple[OcrLine, ...]) -> None:
+    if path is None:
+        return
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        temporary = path.with_suffix(f".{os.getpid()}.tmp")
+        rows = [[line.text, line.confidence, line.top, line.left] for line in lines]
+        temporary.write_text(json.dumps(rows), encoding="utf-8")
+        os.replace(temporary, path)
+    except OSError:
+        pass  # a cache that cannot be written costs time, never a document
+
+
+def recognise(
+    image: Any, key: bytes | None = None, cache_dir: str | None = None
+) -> tuple[OcrLine, ...]:
+    """The text lines of one PIL image, top to bottom; cached by SHA-256 of ``key`` if given,
+    in memory and, with ``cache_dir``, in a file per page image that later runs reuse."""
     digest = hashlib.sha256(key).hexdigest() if key is not None else None
+    disk = _disk_path(cache_dir, digest)
     with _engine_lock:
         if digest is not None and digest in _cache:
             _cache.move_to_end(digest)
             return _cache[digest]
+        stored = _read_disk(disk)
+        if stored is not None and digest is not None:
+            _cache[digest] = stored
+            return stored
         result, _elapsed = _get_engine()(_to_rgb_array(image), use_cls=False)
         lines = []
         for box, text, confidence in result or ():
@@ -112,6 +154,7 @@ def recognise(image: Any, key: bytes | None = None) -> tuple[OcrLine, ...]:
             _cache[digest] = ordered
             while len(_cache) > _CACHE_PAGES:
                 _cache.popitem(last=False)
+            _write_disk(disk, ordered)
         return ordered
 
 
@@ -159,7 +202,7 @@ def _frames(image: Any) -> list[Any]:
     return frames
 
 
-def extract_image(data: bytes, media_type: str) -> Extracted:
+def extract_image(data: bytes, media_type: str, cache_dir: str | None = None) -> Extracted:
     """OCR of a PNG, JPEG or TIFF (each TIFF frame is a page); lines as segments."""
     image = open_image(data)
     try:
@@ -170,7 +213,7 @@ def extract_image(data: bytes, media_type: str) -> Extracted:
     warnings: list[str] = []
     for page, frame in enumerate(frames, start=1):
         key = data if len(frames) == 1 else frame.tobytes()
-        page_found, warning = page_segments(recognise(frame, key), page)
+        page_found, warning = page_segments(recognise(frame, key, cache_dir), page)
         segments.extend(page_found)
         if warning:
             warnings.append(warning)

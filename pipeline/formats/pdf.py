@@ -137,7 +137,7 @@ def _metadata_title(reader: pypdf.PdfReader) -> str | None:
     return normalise_text(title) or None
 
 
-def _ocr_page(page: Any, number: int) -> tuple[list[Segment], list[str]]:
+def _ocr_page(page: Any, number: int, cache_dir: str | None) -> tuple[list[Segment], list[str]]:
     """OCR of the images drawn on a page that has no text layer (a scan is one image a page)."""
     from pipeline.formats import ocr
 
@@ -151,7 +151,7 @@ def _ocr_page(page: Any, number: int) -> tuple[list[Segment], list[str]]:
         try:
             image = ocr.open_image(image_file.data, f"image on page {number}")
             image = image_file.image if image.format is None else image
-            lines = ocr.recognise(image, key=image_file.data)
+            lines = ocr.recognise(image, key=image_file.data, cache_dir=cache_dir)
         except Exception as error:  # noqa: BLE001 - one bad image must not lose the page
             warnings.append(f"page {number}: an image could not be read for OCR ({error})")
             continue
@@ -162,7 +162,7 @@ def _ocr_page(page: Any, number: int) -> tuple[list[Segment], list[str]]:
     return segments, warnings
 
 
-def extract_pdf(data: bytes, *, ocr: bool = True) -> Extracted:
+def extract_pdf(data: bytes, *, ocr: bool = True, ocr_cache: str | None = None) -> Extracted:
     """Paragraphs of every page with ``anchor.page``; pages without text become warnings.
 
     A page without a text layer is read by OCR from the images drawn on it when ``ocr`` is on
@@ -188,7 +188,7 @@ def extract_pdf(data: bytes, *, ocr: bool = True) -> Extracted:
             continue
         paragraphs = split_page_paragraphs(page_text)
         if not paragraphs and ocr:
-            found, page_warnings = _ocr_page(page, number)
+            found, page_warnings = _ocr_page(page, number, ocr_cache)
             warnings.extend(page_warnings)
             if found:
                 warnings.append(f"page {number} has no text layer; its text was read by OCR")
