@@ -142,3 +142,27 @@ def test_ocr_false_reaches_the_folder_connector_and_an_image_is_skipped_with_the
     report = Index(tmp_path / "idx").sync([source.connector()], yes=True)
     failures = {item.path: item.reason for item in report.failures}
     assert any("OCR is off" in reason for reason in failures.values()), failures
+
+
+def test_ocr_false_is_a_key_of_every_source_kind(tmp_path):
+    from pipeline.config import parse_config
+
+    config = parse_config(
+        {
+            "source": [
+                {
+                    "name": "scans-bucket",
+                    "kind": "s3",
+                    "bucket": "marrowby-scans",
+                    "endpoint_url": "http://127.0.0.1:9000/",
+                    "every": "10m",
+                    "ocr": False,
+                }
+            ]
+        },
+        tmp_path / "upwell.toml",
+    )
+    (source,) = config.sources
+    built = source.connector(tmp_path / "state")
+    assert source.ocr is False and built.ocr is False
+    assert "ocr" not in source.options

@@ -78,7 +78,12 @@ class SourceConfig:
         state = (
             state_root or Path(defaults.INDEX_FOLDER) / defaults.CONNECTOR_STATE_FOLDER
         ) / self.name
-        return build_connector(self.kind, self.name, self.options, fail, state)
+        connector = build_connector(self.kind, self.name, self.options, fail, state)
+        if not self.ocr:
+            # The engine reads ``ocr`` off the connector it syncs; connectors are frozen
+            # dataclasses built by their own modules, which need not know about OCR.
+            object.__setattr__(connector, "ocr", False)
+        return connector
 
     def folder_source(self) -> FolderSource:
         """The folder connector of a folder or polled source."""
@@ -286,8 +291,8 @@ def _parse_service(check: _Checker, table: Mapping[str, Any]) -> ServiceConfig:
     )
 
 
-_COMMON_SOURCE_KEYS = ("name", "kind", "watch", "every")
-_FOLDER_KEYS = ("path", "include", "exclude", "ocr")
+_COMMON_SOURCE_KEYS = ("name", "kind", "watch", "every", "ocr")
+_FOLDER_KEYS = ("path", "include", "exclude")
 DEFAULT_POLL_EVERY = 15 * 60.0  # a source nothing can watch is scanned this often by default
 
 
@@ -313,6 +318,7 @@ def _parse_source(
     every = check.duration(f"{where}.every", table["every"]) if "every" in table else None
     if every is None and not watch:
         every = DEFAULT_POLL_EVERY
+    ocr = check.boolean(f"{where}.ocr", table["ocr"]) if "ocr" in table else True
     if kind in ("folder", "polled"):
         check.only_keys(where, table, _COMMON_SOURCE_KEYS + _FOLDER_KEYS)
         if "path" not in table:
@@ -323,7 +329,7 @@ def _parse_source(
             path=_resolve(base, check.string(f"{where}.path", table["path"])),
             watch=watch,
             every=every,
-            ocr=check.boolean(f"{where}.ocr", table["ocr"]) if "ocr" in table else True,
+            ocr=ocr,
             include=check.patterns(f"{where}.include", table.get("include", ["**/*"])),
             # Configured excludes add to the defaults: editor and office temp files stay ignored.
             exclude=DEFAULT_EXCLUDE
@@ -336,7 +342,7 @@ def _parse_source(
         )
     options = {k: v for k, v in table.items() if k not in _COMMON_SOURCE_KEYS}
     source = SourceConfig(
-        name=name, kind=kind, watch=False, every=every, options=options, file=check.file
+        name=name, kind=kind, watch=False, every=every, ocr=ocr, options=options, file=check.file
     )
 
     def fail(key: str, problem: str) -> Any:
