@@ -115,7 +115,7 @@ def test_listing_gives_blob_ids_and_skips_symlinks_hidden_and_unknown_formats(tm
     repo = new_repo(tmp_path / "origin")
     write(repo / "policies" / "returns.md", RETURNS)
     write(repo / "notices" / "ECN-0007.txt", NOTICE)
-    write(repo / "photos" / "frame.png", "not a document format")
+    write(repo / "drawings" / "frame.dwg", "not a document format")
     write(repo / ".github" / "notes.md", "hidden folder")
     os.symlink("policies/returns.md", repo / "returns-link.md")
     head = commit_all(repo, "first")
@@ -237,7 +237,7 @@ def test_no_change_rescan_reads_no_blob_even_after_an_unrelated_commit(tmp_path)
     assert report.commits == []
 
     # A new commit touching only a file no format accepts: new revision, still nothing read.
-    write(repo / "photos" / "frame.png", "image bytes")
+    write(repo / "drawings" / "frame.dwg", "image bytes")
     later = commit_all(repo, "photo")
     source = CountingReads(git_source(tmp_path, str(repo)))
     report = index.sync([source])

@@ -63,7 +63,7 @@ def _notice(docx_data: bytes | None = None) -> bytes:
     message.add_attachment(
         docx_data if docx_data is not None else _docx_bytes(), *DOCX_TYPE, filename="parts.docx"
     )
-    message.add_attachment(b"\x89PNG\r\n\x1a\n" + bytes(64), "image", "png", filename="guide.png")
+    message.add_attachment(b"AC1032" + bytes(64), "application", "acad", filename="guide.dwg")
     return message.as_bytes()
 
 
@@ -97,7 +97,7 @@ def test_notice_subject_sender_body_and_attachments():
     result = extract_eml(data, Limits())
     assert result.media_type == EML_TYPE
     assert result.title == SUBJECT
-    assert result.warnings == ()  # the .png is of a type upwell does not read: silent skip
+    assert result.warnings == ()  # the .dwg is of a type upwell does not read: silent skip
 
     segments = list(result.segments)
     assert segments[0].kind == HEADING and segments[0].text == SUBJECT

@@ -404,7 +404,11 @@ try:
     outcome = {"texts": [s.text for s in result.segments], "warnings": list(result.warnings)}
 except ExtractionError as error:
     outcome = {"error": type(error).__name__, "message": str(error)}
-outcome["max_rss_kib"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+# VmHWM, not ru_maxrss: Linux carries ru_maxrss across exec from the forking parent (here the
+# test runner, with the model loaded), while VmHWM belongs to this process's own memory.
+outcome["max_rss_kib"] = next(
+    int(line.split()[1]) for line in open("/proc/self/status") if line.startswith("VmHWM:")
+)
 print(json.dumps(outcome))
 """
 

@@ -152,4 +152,4 @@ def test_markdown_setext_h1_is_the_title_and_front_matter_is_skipped():
 def test_media_type_is_chosen_by_suffix_in_any_case():
     assert media_type_for("NOTES.MD") == "text/markdown"
     assert media_type_for("ecn.Txt") == "text/plain"
-    assert media_type_for("scan.tiff") is None
+    assert media_type_for("frame-jig.dwg") is None

@@ -297,7 +297,7 @@ def test_glob_to_like_escapes_like_wildcards():
 
 def test_an_unknown_type_names_the_known_ones(index):
     with pytest.raises(UsageError, match="docx"):
-        index.search("seat", types=["xlsx"])
+        index.search("seat", types=["dwg"])
 
 
 # --- new commits are searchable by keyword at once; as-of; erase ---

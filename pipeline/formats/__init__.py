@@ -18,6 +18,7 @@ from pipeline.errors import (
     EmptyDocument,
     UnsupportedDocument,
 )
+from pipeline.formats import mail as _mail
 from pipeline.formats.docx import DOCX_TYPE, extract_docx
 from pipeline.formats.epub import EPUB_TYPE, extract_epub
 from pipeline.formats.html import HTML_TYPE, extract_html
@@ -43,6 +44,7 @@ from pipeline.formats.sheets import (
     extract_xlsx,
 )
 from pipeline.formats.slides import PPTX_TYPE, extract_pptx
+from pipeline.formats.sniff import _SIGNATURES, describe_content
 from pipeline.formats.text import (
     MARKDOWN_TYPE,
     PLAIN_TEXT_TYPE,
@@ -166,20 +168,6 @@ _MEDIA_TYPES: dict[str, str] = {s: f.media_type for s, f in _BY_SUFFIX.items()}
 
 SUPPORTED_SUFFIXES: frozenset[str] = frozenset(_MEDIA_TYPES)
 
-# Leading bytes of formats people commonly save under the wrong name, for error messages.
-_SIGNATURES: tuple[tuple[bytes, str], ...] = (
-    (b"%PDF-", "a PDF document"),
-    (b"PK\x03\x04", "a zip archive"),
-    (b"PK\x05\x06", "an empty zip archive"),
-    (b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1", "a legacy Office file (.doc/.xls, OLE2)"),
-    (b"{\\rtf", "an RTF document"),
-    (b"\x89PNG\r\n\x1a\n", "a PNG image"),
-    (b"\xff\xd8\xff", "a JPEG image"),
-    (b"GIF8", "a GIF image"),
-    (b"\x1f\x8b", "gzip-compressed data"),
-    (b"WEBVTT", "a WebVTT transcript"),
-)
-
 
 def media_type_for(name: str) -> str | None:
     """The media type upwell extracts ``name`` as, judged by its suffix (any case); else None."""
@@ -187,24 +175,6 @@ def media_type_for(name: str) -> str | None:
     base = name.rpartition("/")[2]
     dot = base.rfind(".")
     return _MEDIA_TYPES.get(base[dot:].lower()) if dot > 0 else None
-
-
-def describe_content(data: bytes) -> str:
-    """A short phrase for what the bytes look like ("a zip archive", "HTML", "text", ...)."""
-    head = data[:1024].lstrip()
-    for signature, description in _SIGNATURES:
-        if head.startswith(signature):
-            return description
-    lowered = head[:256].lower()
-    if lowered.startswith((b"<!doctype html", b"<html")):
-        return "an HTML page"
-    if lowered.startswith(b"<?xml") or lowered.startswith(b"<"):
-        return "XML or HTML markup"
-    sample = data[:4096]
-    printable = sum(1 for byte in sample if byte >= 0x20 or byte in b"\t\r\n")
-    if sample and printable / len(sample) > 0.95:
-        return "plain text"
-    return "unrecognised binary data"
 
 
 def extract(name: str, data: bytes, limits: Limits | None = None) -> Extracted:
@@ -237,3 +207,6 @@ def _suffix(name: str) -> str:
     base = name.rpartition("/")[2]
     dot = base.rfind(".")
     return base[dot:].lower() if dot > 0 else ""
+
+
+_mail.use_format_table(extract, media_type_for)

@@ -30,6 +30,7 @@ from dataclasses import replace
 from email.errors import HeaderParseError
 from email.message import EmailMessage, Message
 from email.parser import BytesParser
+from typing import Any
 
 from pipeline.errors import CorruptDocument, EmptyDocument, ExtractionError
 from pipeline.formats.html import extract_html
@@ -198,9 +199,9 @@ class _Reader:
 
     def _read_file(self, filename: str, data: bytes) -> None:
         """Extract a file attachment through the format table, or skip it silently."""
-        # Imported here: the format table imports this module.
-        from pipeline.formats import extract, media_type_for
-
+        if _format_table is None:
+            return
+        extract, media_type_for = _format_table
         if media_type_for(filename) is None:
             return  # a type upwell does not read: skipped, as a folder sync skips it
         try:
@@ -213,6 +214,16 @@ class _Reader:
             for s in extracted.segments
         )
         self.warnings.extend(f"attachment {filename!r}: {w}" for w in extracted.warnings)
+
+
+# (extract, media_type_for) of the format table, handed over by the package when it is imported,
+# so attachments are read by the same table without this module importing its package.
+_format_table: tuple[Any, Any] | None = None
+
+
+def use_format_table(extract: Any, media_type_for: Any) -> None:
+    global _format_table
+    _format_table = (extract, media_type_for)
 
 
 def extract_eml(data: bytes, limits: Limits) -> Extracted:

@@ -139,7 +139,7 @@ def _metadata_title(reader: pypdf.PdfReader) -> str | None:
 
 def _ocr_page(page: Any, number: int, cache_dir: str | None) -> tuple[list[Segment], list[str]]:
     """OCR of the images drawn on a page that has no text layer (a scan is one image a page)."""
-    from pipeline.formats import ocr
+    import pipeline.formats.ocr as ocr  # loaded only for scanned pages
 
     segments: list[Segment] = []
     warnings: list[str] = []

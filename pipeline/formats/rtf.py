@@ -55,7 +55,7 @@ def extract_rtf(data: bytes) -> Extracted:
     """One PARAGRAPH per non-empty line of the text striprtf makes of ``data``."""
     start = data.lstrip(b"\xef\xbb\xbf \t\r\n")
     if not start.startswith(b"{\\rtf"):
-        from pipeline.formats import describe_content  # here: the package imports this module
+        from pipeline.formats.sniff import describe_content
 
         raise CorruptDocument(
             f"not an RTF document (no {{\\rtf header); it looks like {describe_content(data)}"

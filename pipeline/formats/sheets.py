@@ -202,7 +202,7 @@ def _no_data(budget: _Budget, what: str) -> EmptyDocument:
 def check_xlsx_bytes(data: bytes) -> None:
     """The .xlsx check for the formats table: a zip archive, else say what it looks like."""
     if not data.startswith(b"PK"):
-        from pipeline.formats import describe_content  # here: the package imports this module
+        from pipeline.formats.sniff import describe_content
 
         raise CorruptDocument(
             f"not an Excel .xlsx (which is a zip archive); it looks like {describe_content(data)}"
