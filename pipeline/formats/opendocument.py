@@ -45,7 +45,6 @@ import zipfile
 from collections.abc import Callable, Iterator
 
 from lxml import etree
-from openpyxl.utils import get_column_letter
 
 from pipeline.errors import (
     CorruptDocument,
@@ -60,8 +59,8 @@ from pipeline.formats.sheets import (
     MAX_EMPTY_RUN,
     MAX_ROWS,
     _Budget,
-    _no_data,
-    _read_table,
+    _read_sheets,
+    _result,
 )
 from pipeline.formats.text import normalise_text
 from pipeline.records import (
@@ -456,28 +455,13 @@ def extract_ods(
     """One TABLE_ROW per data row of every sheet, in sheet order, as for .xlsx."""
     package = _Package(data, limits, ".ods", "an OpenDocument spreadsheet", ODS_TYPE)
     budget = _Budget(max_rows, max_cells, max_rows, max_cells, max_empty_run)
-    tables = list(package.body("spreadsheet", ".ods").iterchildren(_TABLE_TABLE))
+    tables = package.body("spreadsheet", ".ods").iterchildren(_TABLE_TABLE)
+    sheets = []
     for position, table in enumerate(tables):
-        name = table.get(f"{_TABLE}name") or f"Sheet{position + 1}"
-        finished = _read_table(
-            _sheet_rows(table), name, lambda index: get_column_letter(index + 1), budget, "row"
-        )
-        if not finished:
-            skipped = [t.get(f"{_TABLE}name") or "?" for t in tables[position + 1 :]]
-            if skipped:
-                budget.warnings.append(
-                    "sheets not read because of the limit: "
-                    + ", ".join(f"'{name}'" for name in skipped)
-                )
-            break
-    if not budget.segments:
-        raise _no_data(budget, "OpenDocument spreadsheet")
-    return Extracted(
-        media_type=ODS_TYPE,
-        segments=tuple(budget.segments),
-        title=package.title,
-        warnings=tuple(budget.warnings),
-    )
+        name = table.get(f"{_TABLE}name")
+        sheets.append((name or f"Sheet{position + 1}", name or "?", _sheet_rows(table)))
+    _read_sheets(sheets, budget)
+    return _result(budget, ODS_TYPE, "OpenDocument spreadsheet", package.title)
 
 
 def _paragraphs_text(element: etree._Element) -> str:

@@ -190,10 +190,38 @@ def _read_table(
     return True
 
 
-def _no_data(budget: _Budget, what: str) -> EmptyDocument:
-    if budget.rows_with_values:
-        return EmptyDocument(f"the {what} has only a header row, no rows of data under it")
-    return EmptyDocument(f"the {what} has no cells with values")
+#: One sheet for ``_read_sheets``: its name, the name the warning lists it by when it is not
+#: read, and its rows (a generator, not started until the sheet is read).
+_Sheet = tuple[str, str, Iterable[tuple[int, int, Sequence[object]]]]
+
+
+def _read_sheets(sheets: Sequence[_Sheet], budget: _Budget) -> None:
+    """Read the sheets of a workbook in order, columns named by letter, until the file's budget
+    runs out; then warn which sheets were not read."""
+    for position, (name, _, rows) in enumerate(sheets):
+        if not _read_table(rows, name, lambda index: get_column_letter(index + 1), budget, "row"):
+            skipped = [listed for _, listed, _ in sheets[position + 1 :]]
+            if skipped:
+                budget.warnings.append(
+                    "sheets not read because of the limit: "
+                    + ", ".join(f"'{listed}'" for listed in skipped)
+                )
+            return
+
+
+def _result(budget: _Budget, media_type: str, what: str, title: str | None = None) -> Extracted:
+    """The segments and warnings the file's tables gave; EmptyDocument when no data row was read
+    (``what`` names the file in its message: "workbook", "file")."""
+    if not budget.segments:
+        if budget.rows_with_values:
+            raise EmptyDocument(f"the {what} has only a header row, no rows of data under it")
+        raise EmptyDocument(f"the {what} has no cells with values")
+    return Extracted(
+        media_type=media_type,
+        segments=tuple(budget.segments),
+        title=title,
+        warnings=tuple(budget.warnings),
+    )
 
 
 # --- Excel .xlsx ---------------------------------------------------------------------------------
@@ -245,37 +273,17 @@ def extract_xlsx(
     budget = _Budget(max_rows, max_cells, max_rows, max_cells, max_empty_run)
     try:
         title = normalise_text(workbook.properties.title or "") or None
-        sheets = list(workbook.worksheets)
-        for position, worksheet in enumerate(sheets):
-            finished = _read_table(
-                _sheet_rows(worksheet),
-                worksheet.title,
-                lambda index: get_column_letter(index + 1),
-                budget,
-                "row",
-            )
-            if not finished:
-                skipped = [sheet.title for sheet in sheets[position + 1 :]]
-                if skipped:
-                    budget.warnings.append(
-                        "sheets not read because of the limit: "
-                        + ", ".join(f"'{name}'" for name in skipped)
-                    )
-                break
+        _read_sheets(
+            [(sheet.title, sheet.title, _sheet_rows(sheet)) for sheet in workbook.worksheets],
+            budget,
+        )
     except ExtractionError:
         raise
     except Exception as error:  # noqa: BLE001 - a damaged sheet part fails inside openpyxl's parser
         raise CorruptDocument(f"damaged .xlsx sheet ({type(error).__name__}: {error})") from error
     finally:
         workbook.close()
-    if not budget.segments:
-        raise _no_data(budget, "workbook")
-    return Extracted(
-        media_type=XLSX_TYPE,
-        segments=tuple(budget.segments),
-        title=title,
-        warnings=tuple(budget.warnings),
-    )
+    return _result(budget, XLSX_TYPE, "workbook", title)
 
 
 # --- CSV and TSV ---------------------------------------------------------------------------------
@@ -357,11 +365,7 @@ def _extract_delimited(
         if not budget.segments:
             raise DocumentTooLarge(reason) from None
         budget.warnings.append(f"the file was cut at line {stop.line:,}: {reason}")
-    if not budget.segments:
-        raise _no_data(budget, "file")
-    return Extracted(
-        media_type=media_type, segments=tuple(budget.segments), warnings=tuple(budget.warnings)
-    )
+    return _result(budget, media_type, "file")
 
 
 def extract_csv(
