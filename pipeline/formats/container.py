@@ -21,12 +21,15 @@ from __future__ import annotations
 
 import io
 import zipfile
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
+from typing import IO, TypeVar
 
-from pipeline.errors import CorruptDocument, DocumentTooLarge, ExtractionError
+from pipeline.errors import CorruptDocument, DocumentTooLarge, ExtractionError, UnsupportedDocument
 from pipeline.records import Limits
 
-__all__ = ["INFLATE_ERRORS", "open_checked_zip", "read_part"]
+__all__ = ["INFLATE_ERRORS", "open_checked_package", "open_checked_zip", "read_part"]
+
+_Package = TypeVar("_Package")
 
 # Parts smaller than this are not ratio-checked: small XML compresses very well legitimately.
 RATIO_CHECK_MIN_BYTES = 1024 * 1024
@@ -124,6 +127,35 @@ def open_checked_zip(
         archive.close()
         raise
     return archive
+
+
+def open_checked_package(
+    data: bytes,
+    limits: Limits,
+    opener: Callable[[IO[bytes]], _Package],
+    *,
+    label: str,
+    kind: str,
+    plain: str,
+    required: Iterable[str],
+    doctype_error: type[ExtractionError] = CorruptDocument,
+) -> _Package:
+    """Check ``data`` with ``open_checked_zip``, then open it with ``opener`` (``docx.Document``,
+    ``pptx.Presentation``), turning the library's failures into the project's errors.
+
+    ``plain`` names the only kind of package the library reads ("a plain Word document").
+    """
+    open_checked_zip(
+        data, limits, label=label, kind=kind, required=required, doctype_error=doctype_error
+    ).close()
+    try:
+        return opener(io.BytesIO(data))
+    except ValueError as error:
+        # python-docx and python-pptx raise ValueError for a package whose main part is not the
+        # plain kind (a macro-enabled file, a template or a slide show renamed to the suffix).
+        raise UnsupportedDocument(f"not {plain}: {error}") from error
+    except Exception as error:  # noqa: BLE001 - lxml, zipfile and KeyError failures alike
+        raise CorruptDocument(f"damaged {label} ({type(error).__name__}: {error})") from error
 
 
 def read_part(archive: zipfile.ZipFile, name: str, label: str) -> bytes:

@@ -41,7 +41,6 @@ sees: insertions in, deletions and moved-from text out, field results in, field 
 
 from __future__ import annotations
 
-import io
 import re
 from collections.abc import Iterator
 from typing import Any
@@ -60,7 +59,7 @@ from pipeline.errors import (
     EmptyDocument,
     UnsupportedDocument,
 )
-from pipeline.formats.container import open_checked_zip
+from pipeline.formats.container import open_checked_package
 from pipeline.formats.text import normalise_text
 from pipeline.records import (
     HEADING,
@@ -138,22 +137,17 @@ _CHOICE_TAG = f"{_MARKUP_COMPATIBILITY}Choice"
 
 
 def _open_checked(data: bytes, limits: Limits) -> WordDocument:
-    open_checked_zip(
+    # A macro-enabled .docm or a template renamed to .docx is refused as not a plain document.
+    return open_checked_package(
         data,
         limits,
+        docx.Document,
         label=".docx",
         kind="a Word document",
+        plain="a plain Word document",
         required=(MAIN_PART,),
         doctype_error=UnsupportedDocument,
-    ).close()
-    try:
-        return docx.Document(io.BytesIO(data))
-    except ValueError as error:
-        # python-docx raises ValueError for a package whose main part is not a Word document
-        # (a macro-enabled .docm or a template renamed to .docx).
-        raise UnsupportedDocument(f"not a plain Word document: {error}") from error
-    except Exception as error:  # noqa: BLE001 - lxml, zipfile and KeyError failures alike
-        raise CorruptDocument(f"damaged .docx ({type(error).__name__}: {error})") from error
+    )
 
 
 def _style_chain(paragraph: Paragraph) -> Iterator[object]:

@@ -36,7 +36,6 @@ pictures, charts or SmartArt. ``Extracted.title`` is the core properties' title 
 
 from __future__ import annotations
 
-import io
 from collections.abc import Iterator
 from typing import Any
 
@@ -45,8 +44,8 @@ from pptx.enum.shapes import PP_PLACEHOLDER
 from pptx.oxml.ns import qn
 from pptx.shapes.group import GroupShape
 
-from pipeline.errors import CorruptDocument, EmptyDocument, UnsupportedDocument
-from pipeline.formats.container import open_checked_zip
+from pipeline.errors import CorruptDocument, EmptyDocument
+from pipeline.formats.container import open_checked_package
 from pipeline.formats.text import normalise_text
 from pipeline.records import (
     HEADING,
@@ -77,18 +76,17 @@ _UNPLACED = 1 << 62
 
 def _open_checked(data: bytes, limits: Limits) -> Any:
     # Bytes that are not a zip at all are refused earlier, by the format table's check, which
-    # says what they look like; here the container itself is checked.
-    open_checked_zip(
-        data, limits, label=".pptx", kind="a PowerPoint presentation", required=(MAIN_PART,)
-    ).close()
-    try:
-        return pptx.Presentation(io.BytesIO(data))
-    except ValueError as error:
-        # python-pptx refuses a package whose main part is not a plain presentation (a
-        # macro-enabled .pptm, a template or a slide show renamed to .pptx).
-        raise UnsupportedDocument(f"not a plain PowerPoint presentation: {error}") from error
-    except Exception as error:  # noqa: BLE001 - lxml, zipfile and KeyError failures alike
-        raise CorruptDocument(f"damaged .pptx ({type(error).__name__}: {error})") from error
+    # says what they look like; here the container itself is checked. A macro-enabled .pptm, a
+    # template or a slide show renamed to .pptx is refused as not a plain presentation.
+    return open_checked_package(
+        data,
+        limits,
+        pptx.Presentation,
+        label=".pptx",
+        kind="a PowerPoint presentation",
+        plain="a plain PowerPoint presentation",
+        required=(MAIN_PART,),
+    )
 
 
 def _placeholder_type(shape: Any) -> Any:
