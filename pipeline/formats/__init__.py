@@ -19,6 +19,7 @@ from pipeline.errors import (
     UnsupportedDocument,
 )
 from pipeline.formats import mail as _mail
+from pipeline.formats.container import require_zip_bytes
 from pipeline.formats.docx import DOCX_TYPE, extract_docx
 from pipeline.formats.epub import EPUB_TYPE, extract_epub
 from pipeline.formats.html import HTML_TYPE, extract_html
@@ -87,28 +88,6 @@ def _check_pdf(data: bytes) -> None:
         )
 
 
-def _check_docx(data: bytes) -> None:
-    if not data.startswith(b"PK"):
-        raise CorruptDocument(
-            f"not a Word .docx (which is a zip archive); it looks like {describe_content(data)}"
-        )
-
-
-def _check_pptx(data: bytes) -> None:
-    if not data.startswith(b"PK"):
-        raise CorruptDocument(
-            "not a PowerPoint .pptx (which is a zip archive); it looks like "
-            f"{describe_content(data)}"
-        )
-
-
-def _check_epub(data: bytes) -> None:
-    if not data.startswith(b"PK"):
-        raise CorruptDocument(
-            f"not an EPUB book (which is a zip archive); it looks like {describe_content(data)}"
-        )
-
-
 def _image_extractor(media_type: str) -> Callable[[bytes, Limits], Extracted]:
     def extract_one(data: bytes, limits: Limits) -> Extracted:
         if not limits.ocr:
@@ -122,10 +101,7 @@ def _zip_check(what: str) -> Callable[[bytes], None]:
     """The format table's check for a zip-based format: refuse other bytes, saying what they are."""
 
     def check(data: bytes) -> None:
-        if not data.startswith(b"PK"):
-            raise CorruptDocument(
-                f"not {what} (which is a zip archive); it looks like {describe_content(data)}"
-            )
+        require_zip_bytes(data, what)
 
     return check
 
@@ -145,10 +121,10 @@ FORMATS: tuple[Format, ...] = (
         lambda data, limits: extract_pdf(data, ocr=limits.ocr, ocr_cache=limits.ocr_cache),
         _check_pdf,
     ),
-    Format(DOCX_TYPE, (".docx",), extract_docx, _check_docx),
-    Format(PPTX_TYPE, (".pptx",), extract_pptx, _check_pptx),
+    Format(DOCX_TYPE, (".docx",), extract_docx, _zip_check("a Word .docx")),
+    Format(PPTX_TYPE, (".pptx",), extract_pptx, _zip_check("a PowerPoint .pptx")),
     Format(XLSX_TYPE, (".xlsx",), extract_xlsx, check_xlsx_bytes),
-    Format(EPUB_TYPE, (".epub",), extract_epub, _check_epub),
+    Format(EPUB_TYPE, (".epub",), extract_epub, _zip_check("an EPUB book")),
     Format(ODT_TYPE, (".odt",), extract_odt, _zip_check("an OpenDocument text .odt")),
     Format(ODS_TYPE, (".ods",), extract_ods, _zip_check("an OpenDocument spreadsheet .ods")),
     Format(ODP_TYPE, (".odp",), extract_odp, _zip_check("an OpenDocument presentation .odp")),

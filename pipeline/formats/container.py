@@ -25,9 +25,16 @@ from collections.abc import Callable, Iterable
 from typing import IO, TypeVar
 
 from pipeline.errors import CorruptDocument, DocumentTooLarge, ExtractionError, UnsupportedDocument
+from pipeline.formats.sniff import describe_content
 from pipeline.records import Limits
 
-__all__ = ["INFLATE_ERRORS", "open_checked_package", "open_checked_zip", "read_part"]
+__all__ = [
+    "INFLATE_ERRORS",
+    "open_checked_package",
+    "open_checked_zip",
+    "read_part",
+    "require_zip_bytes",
+]
 
 _Package = TypeVar("_Package")
 
@@ -40,6 +47,15 @@ _XML_SUFFIXES = (".xml", ".rels", ".vml", ".xhtml", ".htm", ".html", ".opf", ".n
 
 #: What ``zipfile`` raises while inflating a damaged part.
 INFLATE_ERRORS = (zipfile.BadZipFile, EOFError, OSError, ValueError, NotImplementedError)
+
+
+def require_zip_bytes(data: bytes, what: str) -> None:
+    """Refuse bytes that do not even start like a zip archive, saying what they look like; the
+    format table's first check for a zip-based format (``what``: "a Word .docx")."""
+    if not data.startswith(b"PK"):
+        raise CorruptDocument(
+            f"not {what} (which is a zip archive); it looks like {describe_content(data)}"
+        )
 
 
 def _part_has_marker(

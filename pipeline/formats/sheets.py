@@ -47,7 +47,7 @@ import openpyxl
 from openpyxl.utils import get_column_letter
 
 from pipeline.errors import CorruptDocument, DocumentTooLarge, EmptyDocument, ExtractionError
-from pipeline.formats.container import open_checked_zip
+from pipeline.formats.container import open_checked_zip, require_zip_bytes
 from pipeline.formats.text import decode_text, normalise_text
 from pipeline.records import TABLE_ROW, Anchor, Extracted, Limits, Segment
 
@@ -229,12 +229,7 @@ def _result(budget: _Budget, media_type: str, what: str, title: str | None = Non
 
 def check_xlsx_bytes(data: bytes) -> None:
     """The .xlsx check for the formats table: a zip archive, else say what it looks like."""
-    if not data.startswith(b"PK"):
-        from pipeline.formats.sniff import describe_content
-
-        raise CorruptDocument(
-            f"not an Excel .xlsx (which is a zip archive); it looks like {describe_content(data)}"
-        )
+    require_zip_bytes(data, "an Excel .xlsx")
 
 
 def _open_checked(data: bytes, limits: Limits) -> openpyxl.Workbook:
