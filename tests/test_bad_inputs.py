@@ -21,7 +21,7 @@ from pipeline.errors import (
 )
 from pipeline.formats import SUPPORTED_SUFFIXES, extract
 from pipeline.records import Limits
-from tests.support.formats import SERVICE_MANUAL, make_pdf
+from tests.support.formats import SERVICE_MANUAL, make_pdf, rewrite_zip
 
 
 def _small_docx() -> bytes:
@@ -29,20 +29,6 @@ def _small_docx() -> bytes:
     document.add_paragraph("Grease the seat post before fitting it to the frame.")
     buffer = io.BytesIO()
     document.save(buffer)
-    return buffer.getvalue()
-
-
-def _rewrite_docx(data: bytes, replace: dict[str, bytes | None]) -> bytes:
-    """Copy a .docx, replacing (or with None, dropping) the named parts."""
-    source = zipfile.ZipFile(io.BytesIO(data))
-    buffer = io.BytesIO()
-    with zipfile.ZipFile(buffer, "w", zipfile.ZIP_DEFLATED) as target:
-        for member in source.infolist():
-            if member.filename in replace:
-                if replace[member.filename] is not None:
-                    target.writestr(member.filename, replace[member.filename])
-            else:
-                target.writestr(member, source.read(member))
     return buffer.getvalue()
 
 
@@ -116,14 +102,14 @@ def test_docx_with_damaged_zip_is_corrupt():
 
 
 def test_docx_without_main_part_is_corrupt():
-    data = _rewrite_docx(_small_docx(), {"word/document.xml": None})
+    data = rewrite_zip(_small_docx(), {"word/document.xml": None})
     with pytest.raises(CorruptDocument, match="word/document.xml"):
         extract("procedure.docx", data)
 
 
 def test_docx_part_inflating_past_the_ratio_limit_is_too_large():
     zeros = bytes(4 * 1024 * 1024)  # deflates about 1000:1
-    data = _rewrite_docx(_small_docx(), {"word/media/padding.bin": None})
+    data = rewrite_zip(_small_docx(), {"word/media/padding.bin": None})
     buffer = io.BytesIO(data)
     with zipfile.ZipFile(buffer, "a", zipfile.ZIP_DEFLATED) as archive:
         archive.writestr("word/media/padding.bin", zeros)
@@ -147,7 +133,7 @@ def test_docx_with_a_doctype_is_unsupported():
         + b'<!DOCTYPE w:document [<!ENTITY shop "Marrowby">]>'
         + document_xml[declaration_end:]
     )
-    data = _rewrite_docx(data, {"word/document.xml": with_doctype})
+    data = rewrite_zip(data, {"word/document.xml": with_doctype})
     with pytest.raises(UnsupportedDocument, match="DOCTYPE"):
         extract("procedure.docx", data)
 

@@ -16,6 +16,7 @@ from pipeline.errors import CorruptDocument, DocumentTooLarge, EmptyDocument
 from pipeline.formats.slides import NOTES_PREFIX, PPTX_TYPE, extract_pptx
 from pipeline.formats.text import normalise_text
 from pipeline.records import HEADING, LIST_ITEM, PARAGRAPH, TABLE_ROW, Limits
+from tests.support.formats import rewrite_zip
 
 # DrawingML and PresentationML namespaces, relationships (ECMA-376 Part 1, 20 and 19; Part 2,
 # OPC; from memory).
@@ -323,20 +324,6 @@ def _small_deck() -> bytes:
     return _save(deck)
 
 
-def _rewrite(data: bytes, replace: dict[str, bytes | None]) -> bytes:
-    """Copy a .pptx, replacing (or with None, dropping) the named parts."""
-    source = zipfile.ZipFile(io.BytesIO(data))
-    buffer = io.BytesIO()
-    with zipfile.ZipFile(buffer, "w", zipfile.ZIP_DEFLATED) as target:
-        for member in source.infolist():
-            if member.filename in replace:
-                if replace[member.filename] is not None:
-                    target.writestr(member.filename, replace[member.filename])
-            else:
-                target.writestr(member, source.read(member))
-    return buffer.getvalue()
-
-
 @pytest.mark.parametrize(
     ("data", "looks_like"),
     [
@@ -360,7 +347,7 @@ def test_damaged_zip_is_corrupt():
 
 
 def test_missing_presentation_part_is_corrupt():
-    data = _rewrite(_small_deck(), {"ppt/presentation.xml": None})
+    data = rewrite_zip(_small_deck(), {"ppt/presentation.xml": None})
     with pytest.raises(CorruptDocument, match="no ppt/presentation.xml part"):
         extract_pptx(data, Limits())
 
@@ -393,7 +380,7 @@ def test_a_part_larger_than_its_header_says_is_corrupt_not_read_past():
     # The central directory claims 100 bytes for a slide part that inflates to 2 MiB: zipfile
     # stops at the declared size and fails the CRC (from memory of zipfile.ZipExtFile), so the
     # declared sizes checked against the limits bound what is ever inflated.
-    data = _rewrite(_small_deck(), {"ppt/slides/slide1.xml": b"<a/>" + b" " * (2 * 1024 * 1024)})
+    data = rewrite_zip(_small_deck(), {"ppt/slides/slide1.xml": b"<a/>" + b" " * (2 * 1024 * 1024)})
     buffer = io.BytesIO(data)
     with zipfile.ZipFile(buffer) as archive:
         info = archive.getinfo("ppt/slides/slide1.xml")
@@ -430,7 +417,7 @@ def test_doctype_with_internal_entities_in_a_slide_is_refused_unexpanded():
     slide = zipfile.ZipFile(io.BytesIO(data)).read("ppt/slides/slide1.xml")
     body = slide.split(b"?>", 1)[1].replace(b"Grease the seat", b"&lol9; Grease the seat")
     assert b"&lol9;" in body
-    data = _rewrite(data, {"ppt/slides/slide1.xml": _BILLION_LAUGHS + body})
+    data = rewrite_zip(data, {"ppt/slides/slide1.xml": _BILLION_LAUGHS + body})
     with pytest.raises(CorruptDocument, match="slide1.xml declares a DOCTYPE"):
         extract_pptx(data, Limits())
 
@@ -443,7 +430,9 @@ def test_doctype_in_a_notes_part_is_refused():
     data = _save(deck)
     notes = zipfile.ZipFile(io.BytesIO(data)).read("ppt/notesSlides/notesSlide1.xml")
     with_doctype = b'<?xml version="1.0"?><!DOCTYPE p:notes [<!ENTITY shop "Marrowby">]>'
-    data = _rewrite(data, {"ppt/notesSlides/notesSlide1.xml": with_doctype + notes.split(b"?>")[1]})
+    data = rewrite_zip(
+        data, {"ppt/notesSlides/notesSlide1.xml": with_doctype + notes.split(b"?>")[1]}
+    )
     with pytest.raises(CorruptDocument, match="notesSlide1.xml declares a DOCTYPE"):
         extract_pptx(data, Limits())
 

@@ -3,8 +3,10 @@
 from __future__ import annotations
 
 import difflib
+import io
 import re
 import unicodedata
+import zipfile
 
 from fpdf import FPDF
 
@@ -58,3 +60,18 @@ def word_similarity(ours: str, reference: str) -> float:
     """difflib.SequenceMatcher ratio over the two word lists (1.0 = same words in same order)."""
     matcher = difflib.SequenceMatcher(None, comparable_words(ours), comparable_words(reference))
     return matcher.ratio()
+
+
+def rewrite_zip(data: bytes, replace: dict[str, bytes | None]) -> bytes:
+    """Copy a zip-based document (.docx, .pptx, ...), replacing (or with None, dropping) the named
+    parts; the others are copied as they are."""
+    source = zipfile.ZipFile(io.BytesIO(data))
+    buffer = io.BytesIO()
+    with zipfile.ZipFile(buffer, "w", zipfile.ZIP_DEFLATED) as target:
+        for member in source.infolist():
+            if member.filename in replace:
+                if replace[member.filename] is not None:
+                    target.writestr(member.filename, replace[member.filename])
+            else:
+                target.writestr(member, source.read(member))
+    return buffer.getvalue()
