@@ -134,5 +134,6 @@ def small_corpus(tmp_path: Path) -> Path:
     return root
 
 
-# The real `upwell watch` subprocess, for every module that runs one.
+# The real `upwell watch` subprocess, for every module that runs one; the console's index.
+from tests.support.console import console, console_history  # noqa: E402,F401
 from tests.support.service import watches  # noqa: E402,F401

@@ -137,8 +137,8 @@ def register(sub: Any) -> None:
     p = sub.add_parser(
         "serve",
         help="serve the web console and the HTTP API over an index, read-only",
-        description="Serve the console (/console/: overview, search, history with its chart "
-        "and diffs, documents, failures) and the HTTP API over any index, local or s3://, "
+        description="Serve the read-only console (/console/: overview, search, history with its "
+        "chart and diffs, documents, failures) and the HTTP API over any index, local or s3://, "
         "without watching or syncing and without taking the writer lock: for readers on other "
         "machines, or beside a service that writes elsewhere. Only loopback by default; on any "
         "other address every page, asset and API call needs the bearer token named by "

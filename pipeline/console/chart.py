@@ -11,7 +11,11 @@ Three panels share one x axis, one step per commit (oldest left):
 - documents searchable after each commit (line, round markers);
 - chunks in the index after each commit (line, square markers);
 - per commit, chunks embedded and reused (bars up) and deleted (bars down), so a bad ingest, a
-  sudden drop, stands out below the zero line.
+  sudden drop, stands out below the zero line. The bars use a square-root scale, so the first
+  build does not flatten every later commit, and each is labelled with its count.
+
+The line panels span their values' own range (labelled on the axis), not zero upwards: a
+drop of a few documents in a thousand must still show.
 
 The values are escaped by the template engine that renders this markup; this module builds
 numbers and the commit's own fields, and escapes those itself.
@@ -28,6 +32,7 @@ LEFT = 64  # room for the y labels
 RIGHT = 16
 PANEL = 64  # height of each panel
 GAP = 30  # between panels: the panel's title sits here
+LABELLED_BARS = 30  # up to this many commits, each bar is labelled with its count
 
 
 def _tick(x: float, y: float, text: str, anchor: str = "end") -> str:
@@ -36,15 +41,20 @@ def _tick(x: float, y: float, text: str, anchor: str = "end") -> str:
     )
 
 
-def _scale(values: Sequence[float], height: float) -> tuple[float, float]:
-    """(top value, pixels per unit) for values drawn from 0 upwards."""
-    top = max([0.0, *values]) or 1.0
-    return top, height / top
+def _range(values: Sequence[float]) -> tuple[float, float]:
+    """(low, high) of a line panel: the values' own range with a margin, so a drop of a few
+    documents in a thousand still shows; the axis labels say where it starts."""
+    if not values:
+        return 0.0, 1.0
+    low, high = min(values), max(values)
+    margin = max((high - low) * 0.2, 1.0)
+    return max(0.0, low - margin), high + margin
 
 
 def _x(i: int, n: int) -> float:
-    span = WIDTH - LEFT - RIGHT
-    return LEFT + (span / 2 if n == 1 else span * i / (n - 1))
+    inset = 14  # the first and last bars stay clear of the axis labels
+    span = WIDTH - LEFT - RIGHT - 2 * inset
+    return LEFT + inset + (span / 2 if n == 1 else span * i / (n - 1))
 
 
 def _label(point: dict[str, Any]) -> str:
@@ -62,27 +72,28 @@ def _line_panel(
 ) -> list[str]:
     n = len(points)
     values = [((p.get("after") or {}).get(key)) for p in points]
-    top, per = _scale([v for v in values if v is not None], PANEL)
+    low, high = _range([v for v in values if v is not None])
+    per = PANEL / (high - low)
     base = top_y + PANEL
     out = [
         f'<text class="panel-title" x="{LEFT}" y="{top_y - 10:.1f}">{escape(title)}</text>',
         f'<line class="axis" x1="{LEFT}" y1="{base:.1f}" x2="{WIDTH - RIGHT}" y2="{base:.1f}"/>',
-        _tick(LEFT - 6, top_y + 4, str(int(top))),
-        _tick(LEFT - 6, base + 4, "0"),
+        _tick(LEFT - 6, top_y + 4, f"{high:.0f}"),
+        _tick(LEFT - 6, base + 4, f"{low:.0f}"),
     ]
     runs: list[list[str]] = [[]]
     for i, v in enumerate(values):
         if v is None:  # retention removed that version: a gap in the line, not a zero
             runs.append([])
         else:
-            runs[-1].append(f"{_x(i, n):.1f},{base - v * per:.1f}")
+            runs[-1].append(f"{_x(i, n):.1f},{base - (v - low) * per:.1f}")
     for run in runs:
         if len(run) > 1:
             out.append(f'<polyline class="series-{key}" points="{" ".join(run)}"/>')
     for i, (p, v) in enumerate(zip(points, values, strict=True)):
         if v is None:
             continue
-        x, y = _x(i, n), base - v * per
+        x, y = _x(i, n), base - (v - low) * per
         title_text = escape(_label(p))
         data = f'data-commit="{escape(p["id"])}" data-value="{v}"'
         if marker == "circle":
@@ -104,23 +115,28 @@ def _bars_panel(points: Sequence[dict[str, Any]], top_y: float) -> list[str]:
     biggest = max([1, *up, *down])
     half = PANEL / 2
     zero = top_y + half
-    per = half / biggest
+
+    def height(count: int) -> float:
+        # square-root scale: the first build's thousands do not flatten a later drop of ten
+        return half * (count / biggest) ** 0.5
+
     step = (WIDTH - LEFT - RIGHT) / max(n, 1)
     width = max(2.0, min(18.0, step * 0.6))
     out = [
         f'<text class="panel-title" x="{LEFT}" y="{top_y - 10:.1f}">'
-        "Chunks per commit: embedded ▮ and reused ▯ above the line, deleted ▮ below</text>",
+        "Chunks per commit: embedded ▮ and reused (outlined) up, deleted ▮ down (√ scale)</text>",
         f'<line class="axis" x1="{LEFT}" y1="{zero:.1f}" x2="{WIDTH - RIGHT}" y2="{zero:.1f}"/>',
-        _tick(LEFT - 6, top_y + 4, f"+{biggest}"),
         _tick(LEFT - 6, zero + 4, "0"),
-        _tick(LEFT - 6, top_y + PANEL + 4, f"−{biggest}"),
     ]
+    if n > LABELLED_BARS:  # too many bars to label each: mark the scale's ends instead
+        out.append(_tick(LEFT - 6, top_y + 4, f"+{biggest}"))
+        out.append(_tick(LEFT - 6, top_y + PANEL + 4, f"−{biggest}"))
     for i, p in enumerate(points):
         x = _x(i, n) - width / 2
         title_text = escape(_label(p))
-        embedded_h = p["embedded"] * per
-        reused_h = p["reused"] * per
-        deleted_h = p["deleted"] * per
+        embedded_h = height(p["embedded"] + p["reused"]) - height(p["reused"])
+        reused_h = height(p["reused"])
+        deleted_h = height(p["deleted"])
         group = [f'<g class="bar" data-commit="{escape(p["id"])}"><title>{title_text}</title>']
         if embedded_h:
             group.append(
@@ -137,6 +153,12 @@ def _bars_panel(points: Sequence[dict[str, Any]], top_y: float) -> list[str]:
                 f'<rect class="bar-deleted" x="{x:.1f}" y="{zero:.1f}" '
                 f'width="{width:.1f}" height="{deleted_h:.1f}"/>'
             )
+        if n <= LABELLED_BARS:
+            cx = x + width / 2
+            if up[i]:
+                group.append(_tick(cx, zero - embedded_h - reused_h - 3, f"+{up[i]}", "middle"))
+            if down[i]:
+                group.append(_tick(cx, zero + deleted_h + 11, f"−{down[i]}", "middle"))
         group.append("</g>")
         out.append("".join(group))
     return out

@@ -27,9 +27,9 @@ SNIPPET_CHARS = 320
 
 #: Source states, worst first: the word the page shows and the icon beside it.
 STATES = {
-    "unreachable": "⛔",
+    "unreachable": "⊘",
     "failing": "✖",
-    "paused": "⏸",
+    "paused": "‖",
     "syncing": "⟳",
     "current": "✔",
 }

@@ -203,7 +203,10 @@ def totals_at(store: Store, commit: Commit) -> dict[str, int] | None:
         docs = dataset_at(store, "documents", commit.documents_version)
         chunks = dataset_at(store, "chunks", commit.version)
         return {
-            "documents": int(docs.count_rows(filter="content_hash IS NOT NULL")),
+            # a document that failed before it was ever read has an empty content hash
+            "documents": int(
+                docs.count_rows(filter="content_hash IS NOT NULL AND content_hash != ''")
+            ),
             "chunks": int(chunks.count_rows()),
         }
     except UnknownVersion:

@@ -245,9 +245,10 @@ class _Handler(BaseHTTPRequestHandler):
             data["service"]["pid"] = os.getpid()
             return data
         if twin == "/search":
-            if not (views.one(query, "q") or "").strip():
-                raise UsageError("q is required: /search?q=WORDS")
-            return reader.read(lambda index: views.search(index, query, default_k=5))
+            data = reader.read(lambda index: views.search(index, query, default_k=5))
+            if not data["query"]:  # the empty search form: what it offers to choose from
+                data["choices"] = reader.read(views.search_choices)
+            return data
         if twin == "/history":
             return reader.read(lambda index: views.history_page(index, query, reader.totals))
         if twin == "/rollback-preview":
