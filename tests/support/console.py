@@ -15,6 +15,7 @@ same ``Index`` calls the CLI makes, in six commits:
 
 from __future__ import annotations
 
+import os
 import shutil
 from collections.abc import Iterator
 from dataclasses import dataclass
@@ -42,6 +43,13 @@ RENAMED = ("training/bleeding-the-hb2-brake.vtt", "training/hb2-brake-bleed.vtt"
 DELETED = "policies/returns-policy.md"
 BROKEN_NEW = "manuals/broken-torque-table.pdf"
 BROKEN_OLD = "procedures/final-inspection.docx"
+
+
+def chromium_path() -> str | None:
+    """Debian's Chromium (``chromium``), another on the PATH, or the one $UPWELL_CHROMIUM names."""
+    return os.environ.get("UPWELL_CHROMIUM") or next(
+        (p for p in map(shutil.which, ("chromium", "chromium-browser")) if p), None
+    )
 
 
 @dataclass
