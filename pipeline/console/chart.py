@@ -63,7 +63,7 @@ def _label(point: dict[str, Any]) -> str:
         f"v{point['version']} · {point['time']} · {point['trigger']}\n"
         f"after: {after.get('documents', '?')} documents, {after.get('chunks', '?')} chunks\n"
         f"chunks: {point['embedded']} embedded, {point['reused']} reused, "
-        f"{point['deleted']} deleted"
+        f"{point.get('added', 0)} added, {point['deleted']} deleted"
     )
 
 
@@ -110,21 +110,27 @@ def _line_panel(
 
 def _bars_panel(points: Sequence[dict[str, Any]], top_y: float) -> list[str]:
     n = len(points)
-    up = [p["embedded"] + p["reused"] for p in points]
+    # Above the line: chunks the commit put in, embedded (solid) or taken from the vector
+    # cache or, for a rollback, from an earlier version (outlined).
+    kept = [max(p["reused"], p.get("added", 0) - p["embedded"]) for p in points]
+    up = [p["embedded"] + k for p, k in zip(points, kept, strict=True)]
     down = [p["deleted"] for p in points]
     biggest = max([1, *up, *down])
     half = PANEL / 2
     zero = top_y + half
 
+    room = half - (13 if n <= LABELLED_BARS else 0)  # labelled bars keep room for the label
+
     def height(count: int) -> float:
         # square-root scale: the first build's thousands do not flatten a later drop of ten
-        return half * (count / biggest) ** 0.5
+        return room * (count / biggest) ** 0.5
 
     step = (WIDTH - LEFT - RIGHT) / max(n, 1)
     width = max(2.0, min(18.0, step * 0.6))
     out = [
         f'<text class="panel-title" x="{LEFT}" y="{top_y - 10:.1f}">'
-        "Chunks per commit: embedded ▮ and reused (outlined) up, deleted ▮ down (√ scale)</text>",
+        "Chunks per commit: embedded ▮, reused or restored (outlined) up; "
+        "deleted ▮ down (√)</text>",
         f'<line class="axis" x1="{LEFT}" y1="{zero:.1f}" x2="{WIDTH - RIGHT}" y2="{zero:.1f}"/>',
         _tick(LEFT - 6, zero + 4, "0"),
     ]
@@ -134,8 +140,8 @@ def _bars_panel(points: Sequence[dict[str, Any]], top_y: float) -> list[str]:
     for i, p in enumerate(points):
         x = _x(i, n) - width / 2
         title_text = escape(_label(p))
-        embedded_h = height(p["embedded"] + p["reused"]) - height(p["reused"])
-        reused_h = height(p["reused"])
+        embedded_h = height(up[i]) - height(kept[i])
+        reused_h = height(kept[i])
         deleted_h = height(p["deleted"])
         group = [f'<g class="bar" data-commit="{escape(p["id"])}"><title>{title_text}</title>']
         if embedded_h:

@@ -253,6 +253,7 @@ def history_page(
                 "after": totals.get(c.id),
                 "embedded": c.chunks["embedded"],
                 "reused": c.chunks["reused"],
+                "added": c.chunks["added"],
                 "deleted": c.chunks["deleted"],
             }
             for c in chart
