@@ -16,7 +16,7 @@ from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from functools import cached_property, lru_cache
 from pathlib import Path
-from typing import Any
+from typing import Any, ClassVar
 
 from pipeline.errors import (
     DocumentTooLarge,
@@ -100,6 +100,8 @@ def path_matches(rel: str, patterns: Sequence[str]) -> bool:
 @dataclass(frozen=True)
 class FolderSource:
     """Files under ``root`` whose relative path passes include/exclude and ``accept``."""
+
+    kind: ClassVar[str] = "folder"  # what `upwell status` and the console call it
 
     name: str
     root: Path

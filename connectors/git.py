@@ -19,7 +19,7 @@ import shutil
 import subprocess
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from pathlib import Path
-from typing import Any
+from typing import Any, ClassVar
 
 from connectors.folder import DEFAULT_EXCLUDE, path_matches
 from pipeline.errors import (
@@ -88,6 +88,8 @@ class GitSource:
     Listed: regular files (not symlinks or submodules) passing include/exclude and ``accept``.
     After ``list_items``, ``revision`` is the commit id that was listed.
     """
+
+    kind: ClassVar[str] = "git"  # what `upwell status` and the console call it
 
     def __init__(
         self,

@@ -38,7 +38,7 @@ from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from email.utils import parsedate_to_datetime
 from pathlib import Path
-from typing import Any
+from typing import Any, ClassVar
 from urllib.parse import unquote, urljoin, urlsplit, urlunsplit
 
 import urllib3
@@ -171,6 +171,8 @@ class _Fetched:
 
 class HttpSource:
     """The pages of one site, listed with conditional GETs; see the module docstring."""
+
+    kind: ClassVar[str] = "http"  # what `upwell status` and the console call it
 
     def __init__(
         self,

@@ -17,7 +17,7 @@ from contextlib import contextmanager
 from dataclasses import dataclass, field
 from functools import cached_property
 from pathlib import Path
-from typing import Any
+from typing import Any, ClassVar
 
 from pipeline.errors import (
     DocumentTooLarge,
@@ -58,6 +58,8 @@ class S3Source:
     ``prefix`` names a folder: "manuals" and "manuals/" both mean the keys under "manuals/".
     Keys in the index are relative to it, as a folder source's are relative to its root.
     """
+
+    kind: ClassVar[str] = "s3"  # what `upwell status` and the console call it
 
     name: str
     bucket: str

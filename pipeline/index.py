@@ -84,6 +84,19 @@ SEARCH_COLUMNS = [
     "line_end",
 ]
 KEYWORD_SEARCH_COLUMNS = [c for c in SEARCH_COLUMNS if c != "_distance"]
+#: What a document's page shows of each of its chunks.
+CHUNK_VIEW_COLUMNS = [
+    "chunk_id",
+    "text",
+    "tokens",
+    "page_start",
+    "page_end",
+    "heading",
+    "t_start",
+    "t_end",
+    "line_start",
+    "line_end",
+]
 
 
 def default_index_path() -> str:
@@ -408,6 +421,10 @@ class Index:
             report.skipped = self._record_skipped(store, resolved)
             if locations is not None:
                 store.update_setting("source_locations", locations)
+            kinds = store.settings().get("source_kinds") or {}
+            seen = {s.name: str(getattr(s, "kind", "folder")) for s in resolved}
+            if any(kinds.get(name) != kind for name, kind in seen.items()):
+                store.update_setting("source_kinds", {**kinds, **seen})
             if report.commits:
                 upkeep.ensure_indexes(store)
                 upkeep.tidy_small_tables(store)
@@ -702,6 +719,60 @@ class Index:
         with self.writing():
             return history.delete_tag(self._open_existing_for_writing("untag"), name)
 
+    def history_totals(self, commits: Sequence[Commit]) -> dict[str, dict[str, int] | None]:
+        """Commit id -> searchable documents and chunks just after it (None where retention
+        removed that version), for the history chart."""
+        store = self.store()
+        return {c.id: history.totals_at(store, c) for c in commits}
+
+    # --- one document -------------------------------------------------------------------------
+
+    def document(self, doc_id: str) -> dict[str, Any] | None:
+        """The documents-table row of ``doc_id`` (without its text), or None if the index holds
+        no row for it (never seen, or removed: see ``document_events``)."""
+        return self.store().document_row(doc_id)
+
+    def document_chunks(
+        self, doc_id: str, offset: int = 0, limit: int = 50
+    ) -> tuple[int, list[dict[str, Any]]]:
+        """(how many chunks ``doc_id`` has now, the ``limit`` of them from ``offset``), each
+        with its anchors (page, heading path, lines, time range) and text."""
+        store = self.store()
+        rows = store.chunks_of(doc_id, CHUNK_VIEW_COLUMNS, start=offset, stop=offset + limit)
+        return store.count_chunks_of(doc_id), rows
+
+    def document_events(self, doc_id: str) -> list[dict[str, Any]]:
+        """What each commit did to ``doc_id``, oldest first: added, modified, failed, moved
+        (here from, or away to, another id) or removed, with the tombstone's reason."""
+        store = self.store()
+        tombstones = {t["commit_id"]: t for t in store.tombstones_of(doc_id)}
+        events: list[dict[str, Any]] = []
+        for commit in history.commits(store):
+            changes = commit.changes
+            found: list[dict[str, Any]] = []
+            for outcome in ("added", "modified", "failed", "removed"):
+                if doc_id in (changes.get(outcome) or ()):
+                    found.append({"event": outcome})
+            for pair in changes.get("moved") or ():
+                if list(pair)[:1] == [doc_id]:
+                    found.append({"event": "moved away", "to": pair[1]})
+                elif list(pair)[1:2] == [doc_id]:
+                    found.append({"event": "moved here", "from": pair[0]})
+            for event in found:
+                tomb = tombstones.get(commit.id)
+                if tomb and event["event"] in ("removed", "moved away"):
+                    event["reason"] = tomb["reason"]
+                    if tomb.get("detail"):
+                        event["detail"] = tomb["detail"]
+                if changes.get("rollback_to"):
+                    event["rollback_to"] = changes["rollback_to"]
+                events.append({"commit": commit.as_dict(), **event})
+        return events
+
+    def document_tombstones(self, doc_id: str) -> list[dict[str, Any]]:
+        """The tombstones ``doc_id`` left, oldest first."""
+        return self.store().tombstones_of(doc_id)
+
     def plan_rollback(self, ref: str) -> RollbackPlan:
         store = self.store()
         log = history.commits(store)
@@ -783,7 +854,13 @@ class Index:
                 removal_reason="source removed",
             )
             report = engine.sync([_NoItems(name)], yes=True, trigger="remove-source")
-            for key in ("source_locations", "source_errors", "source_problems", "source_skipped"):
+            for key in (
+                "source_locations",
+                "source_kinds",
+                "source_errors",
+                "source_problems",
+                "source_skipped",
+            ):
                 entries = dict(store.settings().get(key) or {})
                 if entries.pop(name, None) is not None:
                     store.update_setting(key, entries)
@@ -940,6 +1017,10 @@ class Index:
     def status(self) -> dict[str, Any]:
         """Totals, per-source counts, failed documents with reasons, model and last commit."""
         return index_status(self.store(), str(self.path))
+
+    def source_kinds(self) -> dict[str, str]:
+        """Source name -> its connector's kind (folder, git, http, s3), as last synced."""
+        return dict(self.store().settings().get("source_kinds") or {})
 
 
 class _DeferredEmbedder:

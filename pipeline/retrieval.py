@@ -266,3 +266,20 @@ def highlight(text: str, query: str, on: str = "\x1b[1m", off: str = "\x1b[0m") 
     return _TERM.sub(
         lambda m: f"{on}{m.group(0)}{off}" if m.group(0).lower() in terms else m.group(0), text
     )
+
+
+def marked(text: str, query: str) -> list[tuple[str, bool]]:
+    """``text`` cut into pieces, each flagged True where it is a whole word of the query: what
+    a page wraps in ``<mark>`` after escaping each piece."""
+    terms = query_terms(query)
+    pieces: list[tuple[str, bool]] = []
+    at = 0
+    for m in _TERM.finditer(text):
+        if m.group(0).lower() in terms:
+            if m.start() > at:
+                pieces.append((text[at : m.start()], False))
+            pieces.append((m.group(0), True))
+            at = m.end()
+    if at < len(text):
+        pieces.append((text[at:], False))
+    return pieces

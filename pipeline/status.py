@@ -33,6 +33,7 @@ def index_status(store: Store, location: str) -> dict[str, Any]:
             s["failed"] += 1
             failures.append(
                 {
+                    "doc_id": d["doc_id"],
                     "source": d["source"],
                     "path": d["path"],
                     "reason": d["error"],

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import random
 from pathlib import Path
 
@@ -134,5 +135,24 @@ def small_corpus(tmp_path: Path) -> Path:
     return root
 
 
-# The real `upwell watch` subprocess, for every module that runs one.
+# The real `upwell watch` subprocess, for every module that runs one; the console's index.
+from tests.support.console import console, console_history  # noqa: E402,F401
 from tests.support.service import watches  # noqa: E402,F401
+
+
+def pytest_report_header(config: pytest.Config) -> str:
+    """Say up front whether the console's browser tests can run here."""
+    from tests.support.console import chromium_path
+
+    found = chromium_path()
+    if found:
+        return f"console browser tests: Chromium at {found}"
+    required = (
+        " (UPWELL_REQUIRE_BROWSER is set: they will FAIL)"
+        if os.environ.get("UPWELL_REQUIRE_BROWSER")
+        else ""
+    )
+    return (
+        "console browser tests: NO Chromium found, so they are SKIPPED"
+        f"{required}; `apt-get install chromium` runs them"
+    )

@@ -35,7 +35,7 @@ LAYERS: list[tuple[str, ...]] = [
     ("pipeline.history", "pipeline.config"),
     ("pipeline.engine", "pipeline.status", "pipeline.retrieval"),
     ("pipeline.index",),
-    ("pipeline.verify",),
+    ("pipeline.verify", "pipeline.console"),
     ("pipeline.service",),
     ("pipeline.cli", "pipeline"),
 ]

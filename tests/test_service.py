@@ -568,6 +568,7 @@ def test_an_unmounted_share_removes_nothing_says_why_and_recovers(tmp_path):
         status = s.json("/status")
         (source,) = status["sources"]
         assert source["documents"] == 2 and "error" in source  # nothing removed, and why
+        assert source["state"] == "unreachable" and source["kind"] == "folder"
         # It comes back: the error clears by itself and nothing was lost.
         (tmp_path / "share-unmounted").rename(share)
         wait_for("the service to recover", lambda: not s.failing(), 60)
@@ -578,7 +579,9 @@ def test_an_unmounted_share_removes_nothing_says_why_and_recovers(tmp_path):
             (share / name).rename(tmp_path / name)
         wait_for("the emptied share to be reported", lambda: "share" in s.failing(), 60)
         assert "not synced" in s.failing()["share"]
-        assert s.json("/status")["totals"]["documents"] == 2
+        status = s.json("/status")
+        assert status["totals"]["documents"] == 2
+        assert status["sources"][0]["state"] == "failing"
         for name in ("a.md", "b.md"):
             (tmp_path / name).rename(share / name)
         wait_for("the service to recover", lambda: not s.failing(), 60)

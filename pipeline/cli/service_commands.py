@@ -7,16 +7,18 @@ and ``args.config`` holds the loaded ``Config`` (or None).
 from __future__ import annotations
 
 import argparse
+import dataclasses
 from pathlib import Path
 from typing import Any
 
 from pipeline.cli import handover
 from pipeline.cli.common import HelpFormatter, json_out
-from pipeline.config import STARTER_TEXT, Config
-from pipeline.errors import EXIT_INCONSISTENT, EXIT_OK, UsageError
+from pipeline.config import STARTER_TEXT, Config, ServerConfig, parse_listen
+from pipeline.errors import EXIT_INCONSISTENT, EXIT_OK, IndexMissing, UsageError
 from pipeline.index import Index
 from pipeline.service.daemon import Service
 from pipeline.service.logs import configure_logging
+from pipeline.service.serve import serve
 from pipeline.verify import repair_index, verify_index
 
 
@@ -48,6 +50,31 @@ def cmd_watch(args: argparse.Namespace, index: Index) -> int:
         raise UsageError(f"config {config.file}: no [[source]] to watch")
     configure_logging(args.log_format)
     return Service(config, index, commands=handover.handler(args.parser, index)).run()
+
+
+def cmd_serve(args: argparse.Namespace, index: Index) -> int:
+    config: Config | None = getattr(args, "config", None)
+    server = config.server if config else ServerConfig()
+    if args.listen:
+        try:
+            host, port = parse_listen(args.listen)
+        except ValueError as exc:
+            raise UsageError(f"--listen: {exc}") from None
+        server = dataclasses.replace(server, host=host, port=port)
+    if args.token_env:
+        server = dataclasses.replace(server, token_env=args.token_env)
+    if not index.exists:
+        raise IndexMissing(
+            f"no index at {index.path}: `upwell sync FOLDER` or `upwell watch` builds one"
+        )
+    configure_logging(args.log_format)
+    kinds = {s.name: s.kind for s in config.sources} if config else None
+
+    def ready(url: str) -> None:
+        print(f"upwell serve: console at {url} (read-only; Ctrl-C stops)", file=args.out)
+        args.out.flush()
+
+    return serve(index, server, kinds, ready=ready)
 
 
 def cmd_verify(args: argparse.Namespace, index: Index) -> int:
@@ -97,13 +124,45 @@ def register(sub: Any) -> None:
         help="run as a service: watch the configured sources and keep the index current",
         description="Watch every configured source, sync each change once the file has settled, "
         "scan on the configured schedules, reconcile every source at start and hourly, and serve "
-        "/healthz, /status, /search and /metrics. Runs in the foreground until SIGTERM or SIGINT "
-        "(finishes the batch in hand, exits 0); SIGHUP reloads the configuration.",
+        "the web console (/console/) and the HTTP API (/healthz, /status, /search, "
+        "/history, /document, /failures, /metrics) on server.listen. Runs in the foreground "
+        "until SIGTERM or SIGINT (finishes the batch in hand, exits 0); SIGHUP reloads the "
+        "configuration.",
         epilog="example:\n  upwell --config /etc/upwell/upwell.toml watch --log-format json\n\n"
         "exit codes: 0 stopped cleanly, 2 bad configuration, 4 another writer holds the index",
         formatter_class=formatter_class,
     )
     p.set_defaults(func=cmd_watch)
+
+    p = sub.add_parser(
+        "serve",
+        help="serve the web console and the HTTP API over an index, read-only",
+        description="Serve the read-only console (/console/: overview, search, history with its "
+        "chart and diffs, documents, failures) and the HTTP API over any index, local or s3://, "
+        "without watching or syncing and without taking the writer lock: for readers on other "
+        "machines, or beside a service that writes elsewhere. Only loopback by default; on any "
+        "other address every page, asset and API call needs the bearer token named by "
+        "--token-env (or server.token_env). Runs in the foreground until SIGTERM or SIGINT.",
+        epilog="examples:\n  upwell serve                     # http://127.0.0.1:8765/console/\n"
+        "  upwell --index s3://ix/main serve --listen 127.0.0.1:9000\n"
+        "  UPWELL_TOKEN=... upwell serve --listen 0.0.0.0:8765 --token-env UPWELL_TOKEN\n\n"
+        "exit codes: 0 stopped cleanly, 2 bad address or missing token",
+        formatter_class=formatter_class,
+    )
+    p.add_argument(
+        "--listen",
+        metavar="HOST:PORT",
+        default=None,
+        help="address to listen on (default: server.listen of the configuration, else "
+        "127.0.0.1:8765; port 0 picks a free one)",
+    )
+    p.add_argument(
+        "--token-env",
+        metavar="VAR",
+        default=None,
+        help="environment variable holding the bearer token (needed off loopback)",
+    )
+    p.set_defaults(func=cmd_serve)
 
     p = sub.add_parser(
         "verify",

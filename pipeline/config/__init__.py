@@ -228,11 +228,10 @@ def _parse_server(check: _Checker, table: Mapping[str, Any]) -> ServerConfig:
     host, port = ServerConfig.host, ServerConfig.port
     if "listen" in table:
         listen = check.string("server.listen", table["listen"])
-        host, sep, port_text = listen.rpartition(":")
-        host = host.strip("[]")
-        if not sep or not host or not port_text.isdigit() or int(port_text) > 65535:
-            check.fail("server.listen", f'{listen!r} is not HOST:PORT, such as "127.0.0.1:8765"')
-        port = int(port_text)
+        try:
+            host, port = parse_listen(listen)
+        except ValueError as exc:
+            check.fail("server.listen", str(exc))
     token_env = (
         check.string("server.token_env", table["token_env"]) if "token_env" in table else None
     )
@@ -356,6 +355,20 @@ def _parse_source(
 def _resolve(base: Path, text: str) -> Path:
     path = Path(text).expanduser()
     return (path if path.is_absolute() else base / path).resolve()
+
+
+def parse_listen(listen: str) -> tuple[str, int]:
+    """``HOST:PORT`` (an IPv6 host in brackets) as (host, port); ValueError saying why not."""
+    host, sep, port_text = listen.rpartition(":")
+    host = host.strip("[]")
+    if not sep or not host or not port_text.isdigit() or int(port_text) > 65535:
+        raise ValueError(f'{listen!r} is not HOST:PORT, such as "127.0.0.1:8765"')
+    return host, int(port_text)
+
+
+def is_loopback(host: str) -> bool:
+    """Whether ``host`` is this machine only: ``localhost`` or a loopback address."""
+    return _is_loopback(host)
 
 
 def _is_loopback(host: str) -> bool:

@@ -18,6 +18,7 @@ from pipeline.history.log import (
     parse_time,
     resolve,
     tags,
+    totals_at,
 )
 from pipeline.history.retention import RetentionPlan, plan_retention
 from pipeline.history.rollback import (
@@ -53,4 +54,5 @@ __all__ = [
     "resume",
     "start_rollback",
     "tags",
+    "totals_at",
 ]

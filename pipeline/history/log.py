@@ -196,6 +196,23 @@ def documents_at(store: Store, version: int) -> dict[str, dict[str, Any]]:
     return {r["doc_id"]: r for r in rows if r["content_hash"]}
 
 
+def totals_at(store: Store, commit: Commit) -> dict[str, int] | None:
+    """Searchable documents and chunks just after ``commit``; None once retention removed
+    either version. Counts only: row metadata and one narrow column are read."""
+    try:
+        docs = dataset_at(store, "documents", commit.documents_version)
+        chunks = dataset_at(store, "chunks", commit.version)
+        return {
+            # a document that failed before it was ever read has an empty content hash
+            "documents": int(
+                docs.count_rows(filter="content_hash IS NOT NULL AND content_hash != ''")
+            ),
+            "chunks": int(chunks.count_rows()),
+        }
+    except UnknownVersion:
+        return None
+
+
 def chunk_ids_at(store: Store, version: int) -> dict[str, str]:
     """chunk_id -> doc_id of the chunks table at a version."""
     ds = dataset_at(store, "chunks", version)

@@ -40,6 +40,7 @@ from apscheduler.triggers.interval import IntervalTrigger
 from watchdog.observers import Observer
 
 from pipeline.config import Config, SourceConfig, load_config
+from pipeline.console.views import Live
 from pipeline.engine.reports import SyncReport
 from pipeline.errors import ConfirmationRequired, SourceError, SyncPaused, UpwellError
 from pipeline.history import PAUSED
@@ -84,6 +85,8 @@ class Service:
         self._http: Any = None
         self.busy = threading.Event()  # set while the writer is inside a sync
         self._failing: dict[str, str] = {}  # source -> why its last sync failed
+        self._failing_class: dict[str, str] = {}  # source -> the failure's reason class
+        self._syncing: str | None = None  # the source the writer is syncing now
         self.index_paused = threading.Event()  # the last sync was refused with SyncPaused
         self.started_at = time.time()
         self._commands = commands
@@ -117,6 +120,23 @@ class Service:
 
     def queue_depth(self) -> int:
         return len(self.settle) + self.work.depth()
+
+    def live(self) -> Live:
+        """What the console and ``/status`` show of the service beside the index's own record."""
+        return Live(
+            watching=True,
+            paused=self.paused(),
+            writing=self.busy.is_set(),
+            syncing=self._syncing,
+            queue_depth=self.queue_depth(),
+            failing={
+                name: (self._failing_class.get(name, "error"), why)
+                for name, why in self.failing_sources().items()
+            },
+            kinds={s.name: s.kind for s in self.config.sources},
+            problems=self.problems(),
+            started_at=self.started_at,
+        )
 
     # --- life cycle -------------------------------------------------------------------------
 
@@ -397,6 +417,7 @@ class Service:
     def sync_source(self, source: SourceConfig, trigger: str) -> dict[str, Any] | None:
         """Sync one whole source; log the commit and each failure. Never raises UpwellError."""
         started = time.monotonic()
+        self._syncing = source.name
         try:
             result = self.index.sync(
                 [source.connector(self.index.state_root)],
@@ -445,6 +466,8 @@ class Service:
                 extra={"fields": {"event": "failure", "source": source.name}},
             )
             return None
+        finally:
+            self._syncing = None
         self.index_paused.clear()
         self._failing.pop(source.name, None)
         seconds = time.monotonic() - started
@@ -475,6 +498,7 @@ class Service:
             extra={"fields": {"event": "failure", "source": source, "reason": str(exc)}},
         )
         self._failing[source] = record or str(exc)
+        self._failing_class[source] = reason_class
         if record is not None:
             try:
                 self.index.record_source_error(source, record)

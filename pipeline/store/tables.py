@@ -282,6 +282,32 @@ class Store:
             out.update(zip(rows["doc_id"].to_pylist(), rows["segments"].to_pylist(), strict=True))
         return out
 
+    def document_row(self, doc_id: str) -> dict[str, Any] | None:
+        """The summary row (no segments) of one document, or None."""
+        rows = self._scan("documents", DOCUMENT_SUMMARY_COLUMNS, f"doc_id = {quote(doc_id)}")
+        found = rows.to_pylist()
+        return found[0] if found else None
+
+    def chunks_of(
+        self, doc_id: str, columns: list[str], start: int = 0, stop: int | None = None
+    ) -> list[dict[str, Any]]:
+        """The chunks of one document whose ordinal is in [start, stop), in reading order."""
+        where = f"doc_id = {quote(doc_id)} AND ordinal >= {int(start)}"
+        if stop is not None:
+            where += f" AND ordinal < {int(stop)}"
+        rows = self._scan("chunks", [*columns, "ordinal"], where).to_pylist()
+        rows.sort(key=lambda r: r["ordinal"] or 0)
+        return rows
+
+    def count_chunks_of(self, doc_id: str) -> int:
+        return int(self._t["chunks"].count_rows(f"doc_id = {quote(doc_id)}"))
+
+    def tombstones_of(self, doc_id: str) -> list[dict[str, Any]]:
+        """Every tombstone one document left, oldest first."""
+        rows = self._scan("tombstones", where=f"doc_id = {quote(doc_id)}").to_pylist()
+        rows.sort(key=lambda r: r.get("removed_at") or "")
+        return rows
+
     def chunk_keys(self, doc_ids: Sequence[str]) -> dict[str, list[tuple[str, int]]]:
         """(chunk_id, ordinal) pairs of the given documents, by doc_id."""
         out: dict[str, list[tuple[str, int]]] = {}
