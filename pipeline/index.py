@@ -32,6 +32,7 @@ from connectors.folder import FolderSource
 from pipeline import defaults, formats, history, retrieval
 from pipeline.embedding import make_embedder
 from pipeline.embedding.base import Embedder
+from pipeline.engine.cluster import LazyCluster
 from pipeline.engine.recovery import recover_for_writing
 from pipeline.engine.reports import CommitResult, SyncReport
 from pipeline.engine.sync import SyncEngine
@@ -52,6 +53,7 @@ from pipeline.locking import machine_folder, uri_key, writer_lock
 from pipeline.progress import Progress
 from pipeline.records import (
     ChunkSettings,
+    ClusterSettings,
     Extracted,
     Fingerprint,
     Limits,
@@ -274,6 +276,7 @@ class Index:
         self._store: Store | None = None
         self._embedder: Any = embedder
         self._lock_depth = 0
+        self.cluster: LazyCluster | None = None  # set_cluster(): where extraction and embedding go
 
     # --- opening --------------------------------------------------------------------------------
 
@@ -307,6 +310,30 @@ class Index:
             else:
                 self._embedder = make_embedder(spec)
         return self._embedder
+
+    def _spec(self, store: Store) -> str:
+        """The model spec workers load: the one given, else the one the index records."""
+        return self._model_spec or store.settings().get("model") or DEFAULT_MODEL
+
+    def set_cluster(self, settings: ClusterSettings | None, *, fallback: bool = False) -> None:
+        """Send extraction, chunking and embedding to a Dask cluster from now on (None: in
+        process). The cluster is reached on first need and kept until ``close_cluster()``."""
+        self.close_cluster()
+        self.cluster = LazyCluster(settings, fallback=fallback) if settings else None
+
+    def close_cluster(self) -> None:
+        if self.cluster is not None:
+            self.cluster.close()
+
+    def cluster_status(self) -> dict[str, Any] | None:
+        """Workers and tasks in flight of the cluster in use; None when there is none."""
+        if self.cluster is None:
+            return None
+        return {
+            "configured": self.cluster.settings.describe(),
+            "min_documents": self.cluster.settings.min_documents,
+            **(self.cluster.describe() or {"connected": False}),
+        }
 
     def _wanted_settings(self) -> dict[str, Any]:
         emb = self.embedder()
@@ -391,6 +418,14 @@ class Index:
         if len(set(names)) != len(names):
             raise UsageError(f"two sources share a name: {names}; name them apart with NAME=PATH")
         with self.writing():
+            if self.cluster is not None and not self.cluster.settings.min_documents:
+                # A command on a cluster connects before anything is read or created: an
+                # unreachable scheduler or a mismatched worker stops it with nothing changed.
+                recorded = self.store().settings() if self.exists else {}
+                self.cluster.get(
+                    self._model_spec or recorded.get("model") or DEFAULT_MODEL,
+                    self.embedder().model_id,
+                )
             store = self._store_for_writing()
             self._refuse_if_paused(store)
             locations = self._check_locations(store, resolved, yes=yes, confirm=confirm)
@@ -402,6 +437,8 @@ class Index:
                 batch_documents=self.batch_documents,
                 max_removal_fraction=self.max_removal_fraction,
                 progress=self.progress,
+                cluster=self.cluster,
+                model_spec=self._spec(store),
             )
             try:
                 report = engine.sync(
@@ -914,7 +951,11 @@ class Index:
                 self.limits,
                 progress=self.progress,
                 vector_sources=[store] if same_model else [],
+                cluster=self.cluster,
+                model_spec=target._spec(new_store),
             )
+            if self.cluster is not None:
+                engine.cluster_for(1)  # connect first: nothing is written if it cannot
             by_source: dict[str, list[dict[str, Any]]] = {}
             for row in documents.to_table().to_pylist():
                 if row["content_hash"]:  # a document that never extracted has no text to keep

@@ -183,3 +183,29 @@ def segments_to_json(segments: tuple[Segment, ...] | list[Segment]) -> str:
 
 def segments_from_json(data: str) -> tuple[Segment, ...]:
     return tuple(Segment(text=t, kind=k, anchor=Anchor(**a)) for t, k, a in json.loads(data))
+
+
+@dataclass(frozen=True)
+class ClusterSettings:
+    """``[cluster]`` of the configuration, or ``--workers`` / ``--cluster`` of a command.
+
+    ``workers``: start a LocalCluster of that many processes on 127.0.0.1. ``address``: use
+    the running scheduler there instead. ``min_documents``: a batch with fewer changed documents
+    is done in process (``upwell watch``: a one-file save never waits on the cluster).
+    ``ship_bytes``: the writer reads every document and sends its bytes, for workers that
+    cannot reach the sources' paths.
+    """
+
+    workers: int | None = None
+    address: str | None = None
+    min_documents: int = 0
+    ship_bytes: bool = False
+
+    @property
+    def wanted(self) -> bool:
+        return bool(self.workers) or bool(self.address)
+
+    def describe(self) -> str:
+        if self.address:
+            return f"the Dask scheduler at {self.address}"
+        return f"a local Dask cluster of {self.workers} worker process(es)"

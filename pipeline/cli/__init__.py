@@ -15,7 +15,13 @@ from typing import Any
 
 from pipeline import retrieval
 from pipeline.cli import handover, history_commands, service_commands
-from pipeline.cli.common import HelpFormatter, confirm_on_terminal, json_out
+from pipeline.cli.common import (
+    HelpFormatter,
+    add_cluster_arguments,
+    cluster_for_command,
+    confirm_on_terminal,
+    json_out,
+)
 from pipeline.config import CONFIG_ENV, config_path_from, load_config
 from pipeline.errors import EXIT_OK, EXIT_PARTIAL, UpwellError, UsageError
 from pipeline.index import DEFAULT_INDEX, Index, default_index_path
@@ -64,7 +70,8 @@ def _sync_targets(args: argparse.Namespace, index: Index) -> list[Any]:
 
 
 def cmd_sync(args: argparse.Namespace, index: Index) -> int:
-    report = index.sync(_sync_targets(args, index), yes=args.yes, confirm=args.confirm)
+    with cluster_for_command(args, index):
+        report = index.sync(_sync_targets(args, index), yes=args.yes, confirm=args.confirm)
     data = report.as_dict()
     if args.json:
         json_out(data, args.out)
@@ -260,7 +267,9 @@ def build_parser() -> argparse.ArgumentParser:
         "another. Each batch of changes is one commit.",
         epilog="examples:\n  upwell sync sample_corpus\n  upwell sync /srv/share/handbook "
         "/srv/share/policies --json\n  upwell sync hr=/mnt/hr/docs\n"
-        "  upwell --config upwell.toml sync --source handbook\n\n"
+        "  upwell --config upwell.toml sync --source handbook\n"
+        "  upwell sync /srv/share --workers 2          # a first build on every core\n"
+        "  upwell sync /srv/share --cluster tcp://10.0.0.5:8786\n\n"
         "exit codes: 0 done, 3 committed but some documents failed (see `upwell status`), "
         "2 a confirmation was needed (--yes), 4 another writer is running",
         formatter_class=HelpFormatter,
@@ -284,6 +293,7 @@ def build_parser() -> argparse.ArgumentParser:
         help="do not ask before removing more than half of a source's documents, or before "
         "pointing a known source name at a different folder (a share that moved)",
     )
+    add_cluster_arguments(p)
     p.add_argument("--json", action="store_true", help="print the report as JSON")
     p.set_defaults(func=cmd_sync)
 

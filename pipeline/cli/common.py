@@ -10,10 +10,14 @@ the caller's terminal at the other end of the control socket.
 from __future__ import annotations
 
 import argparse
+import contextlib
 import json
 import sys
 import textwrap
+from collections.abc import Iterator
 from typing import Any, TextIO
+
+from pipeline.errors import UsageError
 
 
 class HelpFormatter(argparse.RawDescriptionHelpFormatter):
@@ -51,3 +55,58 @@ def confirm_on_terminal(message: str) -> bool:
     sys.stderr.write(message + " [y/N] ")
     sys.stderr.flush()
     return sys.stdin.readline().strip().lower() in ("y", "yes")
+
+
+# --- a Dask cluster for one command ---------------------------------------------------------
+
+
+def add_cluster_arguments(p: argparse.ArgumentParser) -> None:
+    """``--workers N`` and ``--cluster ADDRESS``, for the commands that extract and embed."""
+    group = p.add_mutually_exclusive_group()
+    group.add_argument(
+        "--workers",
+        type=int,
+        metavar="N",
+        default=None,
+        help="extract, chunk and embed in N local worker processes (a Dask LocalCluster that "
+        "upwell starts and stops); this process still commits every batch",
+    )
+    group.add_argument(
+        "--cluster",
+        metavar="ADDRESS",
+        default=None,
+        help="use the running Dask scheduler at ADDRESS (tcp://HOST:8786); each worker needs "
+        "the same upwell installed (`dask worker ADDRESS`). Default: [cluster] of the "
+        "configuration, for batches of at least its min_documents",
+    )
+
+
+@contextlib.contextmanager
+def cluster_for_command(args: argparse.Namespace, index: Any) -> Iterator[None]:
+    """Use the cluster ``--workers``/``--cluster`` ask for (every batch), else the
+    configuration's ``[cluster]`` (big batches only); put back what the index had, so a command
+    handed to a running service leaves the service's own cluster as it was."""
+    from pipeline.records import ClusterSettings
+
+    workers, address = getattr(args, "workers", None), getattr(args, "cluster", None)
+    config = getattr(args, "config", None)
+    if workers is not None and workers < 1:
+        raise UsageError(f"--workers must be 1 or more, not {workers}")
+    if address is not None and not address.startswith(("tcp://", "tls://")):
+        raise UsageError(f"--cluster {address!r} is not a scheduler address like tcp://HOST:8786")
+    ship = bool(config and config.cluster and config.cluster.ship_bytes)
+    if workers or address:
+        wanted = ClusterSettings(workers=workers, address=address, ship_bytes=ship)
+    elif config is not None and config.cluster is not None and index.cluster is None:
+        wanted = config.cluster
+    else:
+        yield
+        return
+    before = index.cluster
+    index.cluster = None
+    index.set_cluster(wanted)
+    try:
+        yield
+    finally:
+        index.close_cluster()
+        index.cluster = before

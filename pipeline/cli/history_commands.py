@@ -6,7 +6,7 @@ from __future__ import annotations
 import argparse
 from typing import Any
 
-from pipeline.cli.common import HelpFormatter, json_out
+from pipeline.cli.common import HelpFormatter, add_cluster_arguments, cluster_for_command, json_out
 from pipeline.index import Index
 
 REF_HELP = (
@@ -170,6 +170,11 @@ def cmd_maintain(args: argparse.Namespace, index: Index) -> int:
 
 
 def rebuild_command(args: argparse.Namespace, index: Index) -> int:
+    with cluster_for_command(args, index):
+        return _rebuild(args, index)
+
+
+def _rebuild(args: argparse.Namespace, index: Index) -> int:
     report = index.rebuild(
         args.into,
         as_of=args.as_of,
@@ -311,6 +316,7 @@ def register(sub: Any) -> None:
         "--overlap-tokens", type=int, default=None, help="context from the previous chunk"
     )
     p.add_argument("--json", action="store_true", help="print the report as JSON")
+    add_cluster_arguments(p)
     p.set_defaults(func=rebuild_command)
 
     p = add(

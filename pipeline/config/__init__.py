@@ -29,6 +29,7 @@ from connectors.folder import DEFAULT_EXCLUDE, FolderSource
 from pipeline import defaults, formats
 from pipeline.errors import UsageError
 from pipeline.locations import is_remote
+from pipeline.records import ClusterSettings
 from pipeline.units import parse_duration
 
 CONFIG_ENV = "UPWELL_CONFIG"
@@ -132,6 +133,8 @@ class Config:
     index_storage_options: Mapping[str, str] = field(default_factory=dict, compare=False)
     server: ServerConfig = field(default_factory=ServerConfig)
     service: ServiceConfig = field(default_factory=ServiceConfig)
+    # [cluster]: a Dask cluster for extraction and embedding; None: everything in process.
+    cluster: ClusterSettings | None = None
     sources: tuple[SourceConfig, ...] = ()
 
     def source(self, name: str) -> SourceConfig:
@@ -168,7 +171,7 @@ def parse_config(raw: Mapping[str, Any], file: Path | None = None) -> Config:
     """Validate an already-parsed TOML document; relative paths are taken from the file's folder."""
     check = _Checker(file)
     base = file.parent if file is not None else Path.cwd()
-    check.only_keys("", raw, ("index", "server", "service", "source"))
+    check.only_keys("", raw, ("index", "server", "service", "cluster", "source"))
 
     index = check.table("index", raw.get("index", {}))
     check.only_keys("index", index, ("path", "model", "storage_options"))
@@ -186,6 +189,9 @@ def parse_config(raw: Mapping[str, Any], file: Path | None = None) -> Config:
 
     server = _parse_server(check, check.table("server", raw.get("server", {})))
     service = _parse_service(check, check.table("service", raw.get("service", {})))
+    cluster = (
+        _parse_cluster(check, check.table("cluster", raw["cluster"])) if "cluster" in raw else None
+    )
 
     sources_raw = raw.get("source", [])
     if not isinstance(sources_raw, list):
@@ -206,6 +212,7 @@ def parse_config(raw: Mapping[str, Any], file: Path | None = None) -> Config:
         index_storage_options=storage_options,
         server=server,
         service=service,
+        cluster=cluster,
         sources=tuple(sources),
     )
 
@@ -242,6 +249,33 @@ def _parse_server(check: _Checker, table: Mapping[str, Any]) -> ServerConfig:
             "environment variable holding the bearer token",
         )
     return ServerConfig(host=host, port=port, token_env=token_env)
+
+
+#: ``upwell watch`` sends a batch to the cluster from this many changed documents on.
+CLUSTER_MIN_DOCUMENTS = 200
+
+
+def _parse_cluster(check: _Checker, table: Mapping[str, Any]) -> ClusterSettings:
+    check.only_keys("cluster", table, ("address", "workers", "min_documents", "ship_bytes"))
+    address = check.string("cluster.address", table["address"]) if "address" in table else None
+    workers = (
+        check.integer("cluster.workers", table["workers"], minimum=1)
+        if "workers" in table
+        else None
+    )
+    if bool(address) == bool(workers):
+        check.fail("cluster", "give either address (a running scheduler) or workers (local)")
+    if address and not address.startswith(("tcp://", "tls://")):
+        check.fail(
+            "cluster.address", f"{address!r} is not a scheduler address like tcp://HOST:8786"
+        )
+    minimum = CLUSTER_MIN_DOCUMENTS
+    if "min_documents" in table:
+        minimum = check.integer("cluster.min_documents", table["min_documents"], minimum=0)
+    ship = (
+        check.boolean("cluster.ship_bytes", table["ship_bytes"]) if "ship_bytes" in table else False
+    )
+    return ClusterSettings(workers=workers, address=address, min_documents=minimum, ship_bytes=ship)
 
 
 def _parse_service(check: _Checker, table: Mapping[str, Any]) -> ServiceConfig:
@@ -455,7 +489,8 @@ path = "index"
 # model = "default"
 
 [server]
-# Where `upwell watch` serves /healthz, /status, /search and /metrics. A non-loopback address
+# Where `upwell watch` serves the console (/console/) and /healthz, /status, /search, /metrics.
+# A non-loopback address
 # needs token_env: the name of an environment variable holding the bearer token.
 listen = "127.0.0.1:8765"
 # token_env = "UPWELL_TOKEN"
@@ -468,6 +503,14 @@ listen = "127.0.0.1:8765"
 # maintenance_at = "03:30" # local time of the nightly maintenance
 # paused = false           # true: keep watching, write nothing (reload with SIGHUP)
 # keep_days = 30           # maintenance removes older versions (tagged ones are kept)
+
+# [cluster]
+# Extract and embed big batches (a first build, a reconcile after downtime) on a Dask cluster;
+# the service still commits every batch itself. Give address or workers, not both.
+# address = "tcp://10.0.0.5:8786"   # a running `dask scheduler`; workers: `dask worker ADDRESS`
+# workers = 2                       # or: local worker processes started by upwell
+# min_documents = 200               # smaller batches stay in process
+# ship_bytes = false                # true: the service reads each file and sends its bytes
 
 # One [[source]] per folder. Names appear in search results and must stay stable.
 [[source]]

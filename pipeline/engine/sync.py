@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import dataclasses
 import json
+import logging
 import time
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
@@ -27,6 +28,7 @@ from connectors.base import Source
 from pipeline import defaults, formats
 from pipeline.chunking import chunk_segments
 from pipeline.embedding.base import Embedder
+from pipeline.engine.cluster import Cluster, LazyCluster, Prepared
 from pipeline.engine.recovery import recover_interrupted_batch
 from pipeline.engine.reports import OUTCOMES, CommitResult, Counts, Failure, SyncReport
 from pipeline.errors import ConfirmationRequired, ExtractionError, SourceError
@@ -44,6 +46,8 @@ from pipeline.records import (
 from pipeline.store.ids import chunk_ids, new_commit_id, tombstone_id, utc_now
 from pipeline.store.schema import DocumentBriefs, chunks_schema, commit_row, vectors_schema
 from pipeline.store.tables import Store
+
+log = logging.getLogger("upwell.engine")
 
 
 @dataclass
@@ -98,8 +102,17 @@ class SyncEngine:
         progress: Progress | None = None,
         removal_reason: str = "gone at source",
         vector_sources: Sequence[Store] = (),
+        cluster: LazyCluster | None = None,
+        model_spec: str | None = None,
     ) -> None:
         self.store = store
+        # Extraction, chunking and embedding go to this Dask cluster for a source with at least
+        # ``settings.min_documents`` changed documents; the commits stay here. Workers load the
+        # model ``model_spec`` names themselves.
+        self._lazy_cluster = cluster
+        self.model_spec = model_spec
+        self.cluster: Cluster | None = None
+        self._on_cluster = False
         # Other indexes built with the same model whose vectors may be reused (rebuild).
         self.vector_sources = list(vector_sources)
         self._revisions: dict[str, str] = {}
@@ -216,24 +229,98 @@ class SyncEngine:
             to_read[i : i + self.batch_documents]
             for i in range(0, len(to_read), self.batch_documents)
         ] or [[]]
-        for n, batch in enumerate(batches):
-            if should_stop():
-                report.interrupted = True
-                return
-            last = n == len(batches) - 1
-            counts = Counts()
-            counts.documents["unchanged"] = unchanged if n == 0 else 0
-            result = self._run_batch(
+        cluster = self.cluster_for(len(to_read))
+        self._on_cluster = cluster is not None
+        ocr = getattr(source, "ocr", True)
+        ahead: Prepared | None = None
+        if cluster is not None and self._on_cluster:
+            log.info(
+                f"source {source.name!r}: {len(to_read)} documents to read, extracted and "
+                f"embedded on {cluster.settings.describe()} ({cluster.address})",
+                extra={"fields": {"event": "cluster", "source": source.name}},
+            )
+            ahead = cluster.submit_extract(
+                source, batches[0], known, chunking=self.chunking, limits=self.limits, ocr=ocr
+            )
+        try:
+            self._sync_batches(
                 source,
-                batch,
+                batches,
                 known,
                 removed_by_hash,
                 pending_removals,
-                counts,
+                unchanged,
                 report,
-                take_all_removals=last,
+                ahead,
+                should_stop=should_stop,
                 trigger=trigger,
+                on_commit=on_commit,
             )
+        finally:
+            self._on_cluster = False
+
+    def cluster_for(self, documents: int) -> Cluster | None:
+        """The cluster to use for this many changed documents, or None: in process."""
+        lazy = self._lazy_cluster
+        if lazy is None or not documents or documents < lazy.settings.min_documents:
+            return None
+        self.cluster = lazy.get(self.model_spec or "default", self.embedder.model_id)
+        return self.cluster
+
+    def _sync_batches(
+        self,
+        source: Source,
+        batches: list[list[SourceItem]],
+        known: dict[str, dict[str, Any]],
+        removed_by_hash: dict[str, str],
+        pending_removals: dict[str, None],
+        unchanged: int,
+        report: SyncReport,
+        ahead: Prepared | None,
+        *,
+        should_stop: Callable[[], bool],
+        trigger: str,
+        on_commit: Callable[[CommitResult], None] | None,
+    ) -> None:
+        """One commit per batch. On a cluster, the next batch is being extracted while this one
+        is embedded and committed: at most two batches of results are held (backpressure)."""
+        ocr = getattr(source, "ocr", True)
+        for n, batch in enumerate(batches):
+            prepared, ahead = ahead, None
+            if should_stop():
+                if prepared is not None:
+                    prepared.cancel()
+                report.interrupted = True
+                return
+            if prepared is not None and self.cluster is not None and n + 1 < len(batches):
+                ahead = self.cluster.submit_extract(
+                    source,
+                    batches[n + 1],
+                    known,
+                    chunking=self.chunking,
+                    limits=self.limits,
+                    ocr=ocr,
+                )
+            last = n == len(batches) - 1
+            counts = Counts()
+            counts.documents["unchanged"] = unchanged if n == 0 else 0
+            try:
+                result = self._run_batch(
+                    source,
+                    batch,
+                    known,
+                    removed_by_hash,
+                    pending_removals,
+                    counts,
+                    report,
+                    take_all_removals=last,
+                    trigger=trigger,
+                    prepared=prepared,
+                )
+            except BaseException:
+                if ahead is not None:
+                    ahead.cancel()
+                raise
             report.counts.add(counts)
             if result is not None:
                 report.commits.append(result)
@@ -254,6 +341,7 @@ class SyncEngine:
         *,
         take_all_removals: bool,
         trigger: str,
+        prepared: Prepared | None = None,
     ) -> CommitResult | None:
         started = time.monotonic()
         commit_id = new_commit_id()
@@ -266,15 +354,28 @@ class SyncEngine:
         for item in self.progress.iterate(items, f"reading {source.name}"):
             row = known.get(item.doc_id)
             fp = item.fingerprint.key()
-            try:
-                data = source.read(item.key, self.limits.max_file_bytes)
-            except ExtractionError as exc:
-                self._record_failure(
-                    item, row, fp, str(exc), commit_id, now, doc_rows, counts, report
-                )
-                changes["failed"].append(item.doc_id)
-                continue
-            content_hash = sha256_hex(data)
+            done: dict[str, Any] | None = None
+            if prepared is not None:
+                # Read, hashed, extracted and chunked on a worker; decided here as in process.
+                done = prepared.take(item)
+                if "error" in done and "content_hash" not in done:
+                    self._record_failure(
+                        item, row, fp, done["error"], commit_id, now, doc_rows, counts, report
+                    )
+                    changes["failed"].append(item.doc_id)
+                    continue
+                data = b""
+                content_hash = done["content_hash"]
+            else:
+                try:
+                    data = source.read(item.key, self.limits.max_file_bytes)
+                except ExtractionError as exc:
+                    self._record_failure(
+                        item, row, fp, str(exc), commit_id, now, doc_rows, counts, report
+                    )
+                    changes["failed"].append(item.doc_id)
+                    continue
+                content_hash = sha256_hex(data)
             if row is not None and row["content_hash"] == content_hash:
                 # Same bytes under a new fingerprint (touched, copied over, or a failed file put
                 # back as it was): nothing to extract; refresh the row.
@@ -289,16 +390,23 @@ class SyncEngine:
                     del pending_removals[candidate]
                     removals.append(candidate)
             try:
-                extracted, seg_json = self._extract(
-                    item, data, moved_from, ocr=getattr(source, "ocr", True)
-                )
-                chunks = chunk_segments(
-                    item.doc_id,
-                    extracted.segments,
-                    self.embedder.tokens,
-                    self.chunking,
-                    self.embedder.max_input_tokens,
-                )
+                if done is not None:
+                    if "error" in done:
+                        raise ExtractionError(done["error"])
+                    extracted = done["extracted"]
+                    seg_json = segments_to_json(extracted.segments)
+                    chunks = done["chunks"]
+                else:
+                    extracted, seg_json = self._extract(
+                        item, data, moved_from, ocr=getattr(source, "ocr", True)
+                    )
+                    chunks = chunk_segments(
+                        item.doc_id,
+                        extracted.segments,
+                        self.embedder.tokens,
+                        self.chunking,
+                        self.embedder.max_input_tokens,
+                    )
             except ExtractionError as exc:
                 self._record_failure(
                     item, row, fp, str(exc), commit_id, now, doc_rows, counts, report
@@ -519,7 +627,26 @@ class SyncEngine:
             return None
         counts = Counts()
         changes: dict[str, list[Any]] = {k: [] for k in OUTCOMES if k != "unchanged"}
-        result = self._apply(
+        self._on_cluster = self.cluster_for(len(work)) is not None
+        try:
+            result = self._apply_all(source_name, work, counts, changes, trigger, started)
+        finally:
+            self._on_cluster = False
+        report.counts.add(counts)
+        report.commits.append(result)
+        report.version = result.version
+        return result
+
+    def _apply_all(
+        self,
+        source_name: str,
+        work: list[_DocWork],
+        counts: Counts,
+        changes: dict[str, list[Any]],
+        trigger: str,
+        started: float,
+    ) -> CommitResult:
+        return self._apply(
             source_name,
             work,
             [],
@@ -532,10 +659,6 @@ class SyncEngine:
             trigger=trigger,
             started=started,
         )
-        report.counts.add(counts)
-        report.commits.append(result)
-        report.version = result.version
-        return result
 
     # --- pieces ---------------------------------------------------------------------------------
 
@@ -556,6 +679,9 @@ class SyncEngine:
     def _embed(self, texts: list[str]) -> list[np.ndarray]:
         if not texts:
             return []
+        if self.cluster is not None and self._on_cluster:
+            with self.progress.bar(len(texts), "embedding on the cluster") as bar:
+                return self.cluster.embed(texts, on_done=bar.update)
         out: list[np.ndarray] = []
         step = 64
         with self.progress.bar(len(texts), "embedding") as bar:
