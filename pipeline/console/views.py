@@ -53,9 +53,11 @@ class Live:
     kinds: Mapping[str, str] = field(default_factory=dict)  # configured sources -> kind
     problems: Sequence[str] = ()
     started_at: float | None = None
+    cluster: Mapping[str, Any] | None = None  # workers and tasks in flight, if one is in use
 
     def as_dict(self) -> dict[str, Any]:
         return {
+            "cluster": dict(self.cluster) if self.cluster is not None else None,
             "watching": self.watching,
             "paused": self.paused,
             "writing": self.writing,

@@ -387,7 +387,9 @@ class _Handler(BaseHTTPRequestHandler):
         self._send_json(200 if ok else 503, data)
 
     def _metrics(self, query: dict[str, list[str]]) -> None:
-        self._send(200, self.server.service.metrics.render(), CONTENT_TYPE)
+        service = self.server.service
+        service.metrics.record_cluster(service.live().cluster)
+        self._send(200, service.metrics.render(), CONTENT_TYPE)
 
     # --- sending --------------------------------------------------------------------------------
 

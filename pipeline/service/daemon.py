@@ -136,6 +136,7 @@ class Service:
             kinds={s.name: s.kind for s in self.config.sources},
             problems=self.problems(),
             started_at=self.started_at,
+            cluster=self.index.cluster_status(),
         )
 
     # --- life cycle -------------------------------------------------------------------------
@@ -153,6 +154,9 @@ class Service:
                 signal.signal(signal.SIGINT, self._on_stop_signal)
                 signal.signal(signal.SIGHUP, lambda *_: self.reload_requested.set())
             self._refresh_pause()
+            # Big batches (a first build, a reconcile after downtime) go to the cluster, reached
+            # on first need; small ones, and every batch while it cannot be reached, stay here.
+            self.index.set_cluster(self.config.cluster, fallback=True)
             self._http = start_http_server(self, self.config.server)
             host, port = self._http.server_address[:2]
             log.info(
@@ -200,6 +204,7 @@ class Service:
         if self._http is not None:
             self._http.shutdown()
             self._http.server_close()
+        self.index.close_cluster()
         log.info("stopped", extra={"fields": {"event": "stopped"}})
         return 0
 
@@ -229,6 +234,8 @@ class Service:
         before = {s.name: s for s in self.config.sources}
         after = {s.name: s for s in fresh.sources}
         was_paused = self.config.service.paused
+        if fresh.cluster != self.config.cluster:
+            self.index.set_cluster(fresh.cluster, fallback=True)
         self.config = fresh
         self.settle.settle_seconds = fresh.service.settle_seconds
         self.index.batch_documents = fresh.service.batch_documents

@@ -83,6 +83,14 @@ class ServiceMetrics:
         self.queue_depth = Gauge(
             "upwell_queue_depth", "Paths waiting to settle or to be synced", registry=r
         )
+        self.cluster_workers = Gauge(
+            "upwell_cluster_workers", "Workers of the Dask cluster in use (0: none)", registry=r
+        )
+        self.cluster_tasks = Gauge(
+            "upwell_cluster_tasks_in_flight",
+            "Extraction and embedding tasks the cluster is running",
+            registry=r,
+        )
         self.last_commit = Gauge(
             "upwell_last_commit_timestamp_seconds",
             "Unix time of the last successful commit by this process",
@@ -110,6 +118,10 @@ class ServiceMetrics:
         for s in status["sources"]:
             self.documents.labels(source=s["name"]).set(s["documents"])
             self.chunks.labels(source=s["name"]).set(s["chunks"])
+
+    def record_cluster(self, info: Mapping[str, Any] | None) -> None:
+        self.cluster_workers.set((info or {}).get("workers", 0))
+        self.cluster_tasks.set((info or {}).get("tasks_in_flight", 0))
 
     def render(self) -> bytes:
         return generate_latest(self.registry)
