@@ -22,6 +22,7 @@ import contextlib
 import hashlib
 import logging
 import os
+import time
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
 from functools import cache
@@ -169,6 +170,9 @@ class Cluster:
         self.settings = settings
         self.spec = spec
         self._local: Any = None
+        # Seconds the writer spent waiting on workers: the rest of a build is the writer's own
+        # work, which bounds how many workers one writer can keep busy.
+        self.waited = 0.0
         try:
             if settings.address:
                 self.client = Client(settings.address, timeout=CONNECT_SECONDS)
@@ -228,6 +232,7 @@ class Cluster:
     def result(self, future: Any) -> Any:
         from distributed.client import FutureCancelledError
 
+        started = time.perf_counter()
         try:
             return future.result()
         except (OSError, TimeoutError, FutureCancelledError) as exc:
@@ -235,6 +240,8 @@ class Cluster:
                 f"lost {self.settings.describe()} mid-build ({type(exc).__name__}: {exc}); "
                 "the batches already committed stay, and the next sync redoes only the rest"
             ) from None
+        finally:
+            self.waited += time.perf_counter() - started
 
     def submit_extract(
         self,
@@ -283,6 +290,7 @@ class Cluster:
         futures = [self.client.submit(embed_job, self.spec, p, pure=False) for p in parts]
         order = {f.key: n for n, f in enumerate(futures)}
         done: dict[int, np.ndarray] = {}
+        started, waited_before = time.perf_counter(), self.waited
         try:
             for future in as_completed(futures):
                 done[order[future.key]] = self.result(future)
@@ -291,6 +299,8 @@ class Cluster:
         except BaseException:
             self.client.cancel(futures)
             raise
+        finally:  # the whole wait, counted once (result() above counts its own part)
+            self.waited = waited_before + (time.perf_counter() - started)
         return [v for n in range(len(parts)) for v in done[n]]
 
     def close(self) -> None:
