@@ -69,36 +69,13 @@ from pipeline.store.tables import Store
 DEFAULT_INDEX = defaults.INDEX_FOLDER
 _NAMED_PATH = re.compile(r"^([A-Za-z0-9][A-Za-z0-9_.-]*)=(.+)$")
 DEFAULT_MODEL = defaults.MODEL
-SEARCH_COLUMNS = [
-    "_distance",
-    "chunk_id",
-    "doc_id",
-    "source",
-    "path",
-    "ordinal",
-    "text",
-    "page_start",
-    "page_end",
-    "heading",
-    "t_start",
-    "t_end",
-    "line_start",
-    "line_end",
-]
+#: Where in its document a chunk is: the columns every citation is built from.
+ANCHOR_COLUMNS = ["page_start", "page_end", "heading", "t_start", "t_end", "line_start", "line_end"]
+SEARCH_COLUMNS = ["_distance", "chunk_id", "doc_id", "source", "path", "ordinal", "text"]
+SEARCH_COLUMNS += ANCHOR_COLUMNS
 KEYWORD_SEARCH_COLUMNS = [c for c in SEARCH_COLUMNS if c != "_distance"]
 #: What a document's page shows of each of its chunks.
-CHUNK_VIEW_COLUMNS = [
-    "chunk_id",
-    "text",
-    "tokens",
-    "page_start",
-    "page_end",
-    "heading",
-    "t_start",
-    "t_end",
-    "line_start",
-    "line_end",
-]
+CHUNK_VIEW_COLUMNS = ["chunk_id", "text", "tokens", *ANCHOR_COLUMNS]
 
 
 def default_index_path() -> str:

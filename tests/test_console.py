@@ -325,18 +325,13 @@ def test_with_a_token_every_page_and_asset_needs_it(console_history, monkeypatch
 # --- the `upwell serve` command ------------------------------------------------------------------
 
 
+def serve_argv(index_path: Any, listen: str) -> list[str]:
+    return [PY, "-m", "pipeline.cli", "--index", str(index_path), "serve", "--listen", listen]
+
+
 def test_upwell_serve_serves_the_console_read_only_and_stops_cleanly(console_history, tmp_path):
     proc = subprocess.Popen(
-        [
-            PY,
-            "-m",
-            "pipeline.cli",
-            "--index",
-            str(console_history.index_path),
-            "serve",
-            "--listen",
-            "127.0.0.1:0",
-        ],
+        serve_argv(console_history.index_path, "127.0.0.1:0"),
         cwd=REPO,
         stdout=subprocess.PIPE,
         stderr=subprocess.STDOUT,
@@ -364,16 +359,7 @@ def test_upwell_serve_serves_the_console_read_only_and_stops_cleanly(console_his
 def test_upwell_serve_refuses_an_open_address_without_a_token(console_history):
     env = {k: v for k, v in os.environ.items() if k != TOKEN_ENV}
     done = subprocess.run(
-        [
-            PY,
-            "-m",
-            "pipeline.cli",
-            "--index",
-            str(console_history.index_path),
-            "serve",
-            "--listen",
-            "0.0.0.0:0",
-        ],
+        serve_argv(console_history.index_path, "0.0.0.0:0"),
         cwd=REPO,
         capture_output=True,
         text=True,
