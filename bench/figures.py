@@ -91,6 +91,62 @@ def _verdict(holds: bool | None) -> str:
     return "n/a" if holds is None else ("holds" if holds else "MISSES")
 
 
+@dataclass
+class Paired:
+    """Two timings taken in alternating pairs (A then B, then B then A, ...): the median of the
+    per-pair ratios A/B, their spread, and each side's median. A busy machine slows both sides
+    of a pair alike, so the ratio holds where either side's time alone would not."""
+
+    ratio: float
+    low: float
+    high: float
+    a_seconds: float
+    b_seconds: float
+    pairs: int
+
+    def as_dict(self) -> dict[str, float]:
+        return {
+            "ratio": self.ratio,
+            "ratio_min": self.low,
+            "ratio_max": self.high,
+            "a_seconds": self.a_seconds,
+            "b_seconds": self.b_seconds,
+            "pairs": self.pairs,
+        }
+
+    def spread(self) -> str:
+        return f"{self.low:.2f}-{self.high:.2f} over {self.pairs} pairs"
+
+
+def paired(a: Callable[[], object], b: Callable[[], object], pairs: int = 7) -> Paired:
+    """Time ``a`` and ``b`` in ``pairs`` alternating pairs; see ``Paired``."""
+
+    def timed(action: Callable[[], object]) -> float:
+        started = time.perf_counter()
+        action()
+        return time.perf_counter() - started
+
+    a_times, b_times, ratios = [], [], []
+    for n in range(pairs):
+        if n % 2 == 0:
+            ta = timed(a)
+            tb = timed(b)
+        else:
+            tb = timed(b)
+            ta = timed(a)
+        a_times.append(ta)
+        b_times.append(tb)
+        ratios.append(ta / max(tb, 1e-12))
+    return Paired(
+        ratio=statistics.median(ratios),
+        low=min(ratios),
+        high=max(ratios),
+        a_seconds=statistics.median(a_times),
+        b_seconds=statistics.median(b_times),
+        pairs=pairs,
+    )
+
+
 def _best_of(repeats: int, action: Callable[[], object]) -> float:
     best = float("inf")
     for _ in range(repeats):
@@ -387,6 +443,47 @@ def _large_build(bench: Bench) -> dict[str, Any]:
 # --- 3. no-change rescan -----------------------------------------------------------------------
 
 
+def sync_steps(index: Any, corpus: Path, repeats: int = 5) -> dict[str, float]:
+    """Milliseconds per no-change sync spent in each step, by wrapping the steps for a few
+    extra syncs (the wrapped syncs are not the ones the ratio is measured on)."""
+    import pipeline.engine.sync as engine_sync
+    from pipeline.index import Index
+    from pipeline.store.tables import Store
+
+    spent: dict[str, float] = {}
+    patched: list[tuple[Any, str, Any]] = []
+
+    def wrap(owner: Any, name: str, label: str) -> None:
+        original = getattr(owner, name)
+
+        def timed(*args: Any, **kwargs: Any) -> Any:
+            started = time.perf_counter()
+            try:
+                return original(*args, **kwargs)
+            finally:
+                spent[label] = spent.get(label, 0.0) + time.perf_counter() - started
+
+        patched.append((owner, name, original))
+        setattr(owner, name, timed)
+
+    wrap(engine_sync, "_list_changes", "walk and compare fingerprints")
+    wrap(Store, "document_briefs", "stored fingerprints (briefs)")
+    wrap(engine_sync, "recover_interrupted_batch", "check for an interrupted batch")
+    wrap(Index, "_store_for_writing", "open for writing (settings, pending work)")
+    wrap(Store, "refresh", "  of which: see other writers (refresh)")
+    try:
+        started = time.perf_counter()
+        for _ in range(repeats):
+            index.sync([corpus])
+        total = time.perf_counter() - started
+    finally:
+        for owner, name, original in patched:
+            setattr(owner, name, original)
+    steps = {label: 1000 * seconds / repeats for label, seconds in spent.items()}
+    steps["whole sync"] = 1000 * total / repeats
+    return steps
+
+
 def rescan_ratio(bench: Bench) -> Figure:
     """A no-change sync of a 20,000-document source and a list-only scan of the small-file tree,
     each over a bare os.scandir + stat walk of the same tree in the same run; the worse of the
@@ -405,10 +502,14 @@ def rescan_ratio(bench: Bench) -> Figure:
     index.embedder()
     model_load = time.perf_counter() - started
     reports = []
-    sync_seconds = _best_of(3, lambda: reports.append(index.sync([corpus])))
-    walk_seconds = _best_of(3, lambda: corpora.bare_walk(corpus))
+    index.sync([corpus])  # the first sync after the build opens what the next ones reuse
+    corpora.bare_walk(corpus)  # and the walk warms the directory cache for both sides
+    built_pair = paired(
+        lambda: reports.append(index.sync([corpus])), lambda: corpora.bare_walk(corpus)
+    )
+    sync_seconds, walk_seconds = built_pair.a_seconds, built_pair.b_seconds
     unchanged = reports[-1].counts.documents["unchanged"]
-    sync_ratio = sync_seconds / walk_seconds
+    sync_ratio = built_pair.ratio
 
     tree = bench.workdir / f"tree-{bench.sizes.scan_files}"
     if not tree.exists():
@@ -420,9 +521,11 @@ def rescan_ratio(bench: Bench) -> Figure:
     source = FolderSource.from_path(tree, suffixes=formats.SUPPORTED_SUFFIXES)
     listed: list[int] = []
     corpora.bare_walk(tree)  # warm the directory cache for both sides alike
-    scan_seconds = _best_of(3, lambda: listed.append(sum(1 for _ in source.list_items())))
-    tree_walk_seconds = _best_of(3, lambda: corpora.bare_walk(tree))
-    scan_ratio = scan_seconds / tree_walk_seconds
+    scan_pair = paired(
+        lambda: listed.append(sum(1 for _ in source.list_items())), lambda: corpora.bare_walk(tree)
+    )
+    scan_seconds, tree_walk_seconds = scan_pair.a_seconds, scan_pair.b_seconds
+    scan_ratio = scan_pair.ratio
 
     # The figure is defined at 20,000 documents. A --quick run has no 20,000-document build of
     # the full corpus (hours of embedding), so it indexes the small-file tree instead, with the
@@ -435,12 +538,16 @@ def rescan_ratio(bench: Bench) -> Figure:
         tree_index.sync([tree])
         tree_build = time.perf_counter() - started
         tree_reports = []
-        tree_sync_seconds = _best_of(3, lambda: tree_reports.append(tree_index.sync([tree])))
+        tree_index.sync([tree])
+        tree_pair = paired(
+            lambda: tree_reports.append(tree_index.sync([tree])), lambda: corpora.bare_walk(tree)
+        )
         tree_sync = {
             "documents": tree_reports[-1].counts.documents["unchanged"],
-            "seconds": tree_sync_seconds,
-            "walk_seconds": tree_walk_seconds,
-            "ratio": tree_sync_seconds / tree_walk_seconds,
+            "seconds": tree_pair.a_seconds,
+            "walk_seconds": tree_pair.b_seconds,
+            "ratio": tree_pair.ratio,
+            "spread": tree_pair.as_dict(),
             "build_seconds": tree_build,
         }
     headline_sync = tree_sync["ratio"] if tree_sync else sync_ratio
@@ -455,9 +562,9 @@ def rescan_ratio(bench: Bench) -> Figure:
                 _verdict(tree_sync["ratio"] <= 2.0),
             ),
             (
-                "  (info) sync, walk, build",
-                f"{tree_sync['seconds']:.3f} s, {tree_walk_seconds:.3f} s, "
-                f"{tree_sync['build_seconds']:.0f} s",
+                "  (info) sync, walk (medians), build; pair ratios",
+                f"{tree_sync['seconds']:.3f} s, {tree_sync['walk_seconds']:.3f} s, "
+                f"{tree_sync['build_seconds']:.0f} s; {tree_pair.spread()}",
                 "",
                 "info",
             ),
@@ -470,8 +577,9 @@ def rescan_ratio(bench: Bench) -> Figure:
             _verdict(sync_ratio <= 2.0) if not tree_sync else "info",
         ),
         (
-            "  (info) sync, walk, model load",
-            f"{sync_seconds:.3f} s, {walk_seconds:.3f} s, {model_load:.2f} s",
+            "  (info) sync, walk (medians), model load; pair ratios",
+            f"{sync_seconds:.3f} s, {walk_seconds:.3f} s, {model_load:.2f} s; "
+            f"{built_pair.spread()}",
             "",
             "info",
         ),
@@ -481,11 +589,18 @@ def rescan_ratio(bench: Bench) -> Figure:
             "<= 2.0",
             _verdict(scan_ratio <= 2.0),
         ),
-        ("  (info) scan, walk", f"{scan_seconds:.3f} s, {tree_walk_seconds:.3f} s", "", "info"),
+        (
+            "  (info) scan, walk (medians); pair ratios",
+            f"{scan_seconds:.3f} s, {tree_walk_seconds:.3f} s; {scan_pair.spread()}",
+            "",
+            "info",
+        ),
     ]
     extra = {
         "rescan_ratio_sync": headline_sync,
         "rescan_ratio_sync_built": sync_ratio,
+        # the same no-change sync at 2,000 documents (the figure-2 index), where fixed costs show
+        "rescan_ratio_2k": sync_ratio if unchanged <= 2_000 else None,
         "rescan_ratio_scan": scan_ratio,
         "rescan_tree_sync": tree_sync,
         "rescan_detail": {
@@ -496,8 +611,20 @@ def rescan_ratio(bench: Bench) -> Figure:
             "scan_seconds": scan_seconds,
             "scan_walk_seconds": tree_walk_seconds,
             "model_load_seconds": model_load,
+            "sync_pairs": built_pair.as_dict(),
+            "sync_steps_ms": sync_steps(index, corpus),
+            "scan_pairs": scan_pair.as_dict(),
         },
     }
+    steps = extra["rescan_detail"]["sync_steps_ms"]
+    rows.append(
+        (
+            f"  (info) one no-change sync of {unchanged} docs, ms",
+            ", ".join(f"{label} {ms:.1f}" for label, ms in steps.items()),
+            "",
+            "info",
+        )
+    )
     return Figure("rescan_ratio", worse, rows, extra)
 
 
@@ -1102,7 +1229,8 @@ def keyword_sync_cost(bench: Bench) -> Figure:
     edits = max(3, bench.sizes.saves)
     try:
         for step in range(edits + 1):
-            for name in ("with", "without"):
+            # alternate which side goes first, so a slow moment lands on both alike
+            for name in ("with", "without") if step % 2 else ("without", "with"):
                 if name == "without":
                     upkeep.ensure_keyword_index = lambda store, *a, **kw: []
                 else:
@@ -1123,8 +1251,16 @@ def keyword_sync_cost(bench: Bench) -> Figure:
         upkeep.ensure_keyword_index = keep
     with_s = statistics.median(times["with"])
     without_s = statistics.median(times["without"])
-    ratio = with_s / without_s
-    value = {"ratio": ratio, "with_s": with_s, "without_s": without_s, "syncs": edits}
+    pair_ratios = [w / max(o, 1e-12) for w, o in zip(times["with"], times["without"], strict=True)]
+    ratio = statistics.median(pair_ratios)
+    value = {
+        "ratio": ratio,
+        "ratio_min": min(pair_ratios),
+        "ratio_max": max(pair_ratios),
+        "with_s": with_s,
+        "without_s": without_s,
+        "syncs": edits,
+    }
     rows = [
         (
             f"one-document sync, keyword index kept / none ({documents} documents)",
@@ -1132,7 +1268,13 @@ def keyword_sync_cost(bench: Bench) -> Figure:
             "<= 1.5",
             _verdict(ratio <= 1.5),
         ),
-        ("  (info) median with, without", f"{with_s:.2f} s, {without_s:.2f} s", "", "info"),
+        (
+            "  (info) median with, without; pair ratios",
+            f"{with_s:.2f} s, {without_s:.2f} s; {min(pair_ratios):.2f}-{max(pair_ratios):.2f} "
+            f"over {edits} pairs",
+            "",
+            "info",
+        ),
     ]
     return Figure("keyword_sync_cost", value, rows)
 
