@@ -184,7 +184,7 @@ class SyncEngine:
             )
             if report.interrupted:
                 break
-        report.version = int(self.store.table("chunks").version)
+        report.version = self.store.version("chunks")
         return report
 
     def _sync_source(
@@ -203,9 +203,12 @@ class SyncEngine:
         prefix = source.name + ":"  # a doc_id is SOURCE:KEY
         stored_hash = briefs.content_hash
         listed = listing.keys
-        removed = [prefix + key for key in stored_hash if key not in listed]
-        searchable = sum(1 for h in stored_hash.values() if h)
+        # A set difference in C first: in the usual rescan nothing is missing, and walking
+        # 20,000 stored keys in Python to find that out cost more than the rest of the compare.
+        missing = stored_hash.keys() - listed
+        removed = [prefix + key for key in stored_hash if key in missing] if missing else []
         gone = [d for d in removed if stored_hash[d[len(prefix) :]]]
+        searchable = sum(1 for h in stored_hash.values() if h) if gone else 0
         if searchable and len(gone) > self.max_removal_fraction * searchable and not yes:
             message = (
                 f"source {source.name!r}: this sync would remove {len(gone)} of its "

@@ -19,6 +19,7 @@ from __future__ import annotations
 import json
 import os
 import re
+import time
 from collections.abc import Callable, Mapping, Sequence
 from datetime import timedelta
 from pathlib import Path
@@ -95,6 +96,11 @@ class Store:
         # handles re-check the latest version by themselves.
         self._cache_settings = not is_remote(self.path)
         self._memo: dict[tuple[str, str], tuple[int, Any]] = {}
+        # The version of each local table's handle, kept with the stamp of its versions folder
+        # (see ``_folder_stamp``): asking LanceDB for a version is a round trip to its event
+        # loop thread (about 0.25 ms each, measured with lancedb 0.40), and a no-change sync
+        # asked about twenty times; a stat of the folder is a few microseconds.
+        self._known: dict[str, tuple[tuple[int, int], int]] = {}
 
     # --- opening ----------------------------------------------------------------------------
 
@@ -200,13 +206,44 @@ class Store:
                 )
 
     def versions(self) -> dict[str, int]:
-        return {name: int(self._t[name].version) for name in ("chunks", "documents", "tombstones")}
+        return {name: self.version(name) for name in ("chunks", "documents", "tombstones")}
+
+    def version(self, name: str) -> int:
+        """The version the handle of table ``name`` reads. For a local table whose versions
+        folder has not changed since ``refresh()`` found the handle at the latest version, the
+        one recorded then, without asking LanceDB."""
+        known = self._known.get(name)
+        if known is not None and known[0] == self._folder_stamp(name):
+            return known[1]
+        return int(self._t[name].version)
 
     def refresh(self) -> None:
         """See writes made by other processes since this store was opened (what is kept by
-        version is read again where the version moved)."""
-        for table in self._t.values():
+        version is read again where the version moved). A local table whose versions folder
+        is as it was when its handle was last brought up to date is left as it is."""
+        for name, table in self._t.items():
+            stamp = self._folder_stamp(name)
+            known = self._known.pop(name, None)
+            if known is not None and known[0] == stamp:
+                self._known[name] = known
+                continue
             table.checkout_latest()
+            if stamp is not None and _settled(stamp):
+                # Taken before the checkout: a write landing in between changes the folder, so
+                # the next look misses and asks LanceDB; a stale pair is never kept.
+                self._known[name] = (stamp, int(table.version))
+
+    def _folder_stamp(self, name: str) -> tuple[int, int] | None:
+        """(inode, mtime in ns) of a local table's ``_versions`` folder, or None (object
+        storage, or no such folder). Every commit, checkout-as-new-version, restore and cleanup
+        adds or removes a manifest file there, which changes the folder's mtime."""
+        if not self._cache_settings:
+            return None
+        try:
+            st = os.stat(os.path.join(self.path, f"{name}.lance", "_versions"))
+        except OSError:
+            return None
+        return st.st_ino, st.st_mtime_ns
 
     # --- reading ----------------------------------------------------------------------------
 
@@ -226,7 +263,7 @@ class Store:
         """``read()``, or what it returned before while ``table`` is at the same version."""
         if not self._cache_settings:
             return read()
-        version = int(self._t[table].version)
+        version = self.version(table)
         hit = self._memo.get((table, key))
         if hit is not None and hit[0] == version:
             return hit[1]
@@ -520,6 +557,17 @@ class Store:
             .execute(table)
         )
         self._memo.pop(("settings", "all"), None)
+
+
+#: A folder stamp is trusted once its mtime is this far in the past. File systems keep mtimes
+#: to a clock tick (a few ms on Linux; 1-2 s on some network and FAT file systems), so two
+#: changes within one tick can leave the same mtime; a folder untouched for longer than a tick
+#: gets a new mtime from its next change (the "racy timestamp" rule git applies to its index).
+STAMP_SETTLE_NS = 2_000_000_000
+
+
+def _settled(stamp: tuple[int, int]) -> bool:
+    return time.time_ns() - stamp[1] > STAMP_SETTLE_NS
 
 
 def _vectors_to_numpy(column: pa.ChunkedArray | pa.Array) -> np.ndarray:
