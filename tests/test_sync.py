@@ -10,6 +10,7 @@ import json
 import os
 import random
 import shutil
+import threading
 from pathlib import Path
 
 import numpy as np
@@ -623,3 +624,48 @@ def test_an_unreachable_source_is_reported_in_status_until_it_is_back(
     shutil.move(tmp_path / "away", small_corpus)
     ix.sync([small_corpus])
     assert "error" not in ix.status()["sources"][0]
+
+
+def test_a_build_read_ahead_on_the_producer_thread_equals_one_read_in_line(
+    tmp_path, hash_embedder, monkeypatch
+):
+    # Several batches in process: each next batch is read, extracted and chunked on the
+    # producer thread while the batch before it is embedded and committed. The index must be
+    # the one a single batch read on the writer's own thread gives, bad input included.
+    share = tmp_path / "share"
+    shutil.copytree(Path(__file__).parents[1] / "sample_corpus", share)
+    write(share / "zz-late" / "broken.pdf", "%PDF-1.7 cut off here")
+    write(share / "zz-late" / "not-word.docx", "plain text under a Word name")
+    threads: set[str] = set()
+    extract = formats.extract
+
+    def noting_thread(*args, **kwargs):
+        threads.add(threading.current_thread().name)
+        return extract(*args, **kwargs)
+
+    monkeypatch.setattr(formats, "extract", noting_thread)
+    ahead = Index(tmp_path / "ahead", model="hash", embedder=hash_embedder, batch_documents=3)
+    ahead_report = ahead.sync([f"share={share}"])
+    assert threads and all(t.startswith("upwell-extract") for t in threads)
+    threads.clear()
+    inline = Index(tmp_path / "inline", model="hash", embedder=hash_embedder, batch_documents=500)
+    inline_report = inline.sync([f"share={share}"])
+    assert threads == {threading.current_thread().name}
+
+    assert len(ahead_report.commits) > 3 and len(inline_report.commits) == 1
+    assert ahead_report.counts.documents == inline_report.counts.documents
+    assert ahead_report.counts.chunks["embedded"] == inline_report.counts.chunks["embedded"]
+
+    def chunks(ix: Index) -> dict[str, tuple]:
+        rows = ix.store().table("chunks").to_arrow().to_pylist()
+        return {r["chunk_id"]: (r["doc_id"], r["text"], tuple(r["vector"])) for r in rows}
+
+    def documents(ix: Index) -> dict[str, tuple]:
+        rows = ix.store().all_documents()
+        return {r["doc_id"]: (r["status"], r["content_hash"], r["error"]) for r in rows}
+
+    assert chunks(ahead) == chunks(inline) and len(chunks(inline)) > 20
+    assert documents(ahead) == documents(inline)
+    failed = {d: e for d, (status, _, e) in documents(ahead).items() if status == "failed"}
+    assert set(failed) == {"share:zz-late/broken.pdf", "share:zz-late/not-word.docx"}
+    assert all(failed.values())

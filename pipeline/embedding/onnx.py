@@ -6,6 +6,7 @@ ONNX export plus tokenizer.json given by path."""
 from __future__ import annotations
 
 import importlib.resources
+import os
 import threading
 from collections.abc import Sequence
 from pathlib import Path
@@ -133,8 +134,12 @@ class OnnxEmbedder:
         options = onnxruntime.SessionOptions()
         options.graph_optimization_level = onnxruntime.GraphOptimizationLevel.ORT_ENABLE_ALL
         options.inter_op_num_threads = 1
-        if threads is not None:
-            options.intra_op_num_threads = threads
+        # One thread per CPU this process may run on (not onnxruntime's own guess, which counts
+        # physical cores and ignores a container's CPU set): a batch's matrix products split
+        # across all of them. The sync's producer thread takes the CPU only while the model
+        # waits on it, since extraction is a few percent of a build's time.
+        options.intra_op_num_threads = threads if threads is not None else available_cpus()
+        self.threads = options.intra_op_num_threads
         try:
             self._session = onnxruntime.InferenceSession(
                 str(self.model_path), sess_options=options, providers=["CPUExecutionProvider"]
@@ -237,6 +242,14 @@ class OnnxEmbedder:
             "max_input_tokens": self.max_input_tokens,
             "pooling": "model-pooled+l2" if self._pooled_output else "masked-mean+l2",
         }
+
+
+def available_cpus() -> int:
+    """CPUs this process may run on (its affinity set where the platform has one)."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # not on Linux
+        return max(1, os.cpu_count() or 1)
 
 
 # --- choosing an embedder --------------------------------------------------------------------

@@ -18,6 +18,7 @@ import json
 import logging
 import time
 from collections.abc import Callable, Mapping, Sequence
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
 from typing import Any
 
@@ -49,6 +50,9 @@ from pipeline.store.tables import Store
 
 log = logging.getLogger("upwell.engine")
 
+#: Texts per embedder call in process (the cluster sends the same number per task).
+EMBED_STEP = 64
+
 
 @dataclass
 class Listing:
@@ -74,6 +78,23 @@ def _list_changes(source: Source, unchanged_if: Mapping[str, str | None]) -> Lis
         if unchanged_if.get(item.key) != item.fingerprint.key():
             changed.append(item)
     return Listing(keys, changed)
+
+
+class _Ahead:
+    """One batch being read, hashed, extracted and chunked on the engine's producer thread
+    while the writer embeds and commits the batch before it; taken in the batch's order, as a
+    cluster's ``Prepared`` is. The thread is the only user of the source meanwhile."""
+
+    def __init__(self, futures: dict[str, Future[dict[str, Any]]]) -> None:
+        self._futures = futures
+
+    def take(self, item: SourceItem) -> dict[str, Any]:
+        return self._futures.pop(item.doc_id).result()
+
+    def cancel(self) -> None:
+        for future in self._futures.values():
+            future.cancel()
+        self._futures.clear()
 
 
 @dataclass
@@ -235,7 +256,7 @@ class SyncEngine:
         cluster = self.cluster_for(len(to_read))
         self._on_cluster = cluster is not None
         ocr = getattr(source, "ocr", True)
-        ahead: Prepared | None = None
+        ahead: Prepared | _Ahead | None = None
         if cluster is not None and self._on_cluster:
             log.info(
                 f"source {source.name!r}: {len(to_read)} documents to read, extracted and "
@@ -245,6 +266,13 @@ class SyncEngine:
             ahead = cluster.submit_extract(
                 source, batches[0], known, chunking=self.chunking, limits=self.limits, ocr=ocr
             )
+        producer = None
+        if ahead is None and len(batches) > 1:
+            # In process, a producer thread reads and extracts the next batch while this one
+            # is embedded and committed (the model releases the GIL while it runs). One batch
+            # ahead at most, so memory stays bounded as on a cluster.
+            producer = ThreadPoolExecutor(1, thread_name_prefix="upwell-extract")
+            ahead = self._submit_local(producer, source, batches[0], known, ocr)
         try:
             self._sync_batches(
                 source,
@@ -258,9 +286,12 @@ class SyncEngine:
                 should_stop=should_stop,
                 trigger=trigger,
                 on_commit=on_commit,
+                producer=producer,
             )
         finally:
             self._on_cluster = False
+            if producer is not None:
+                producer.shutdown(wait=True, cancel_futures=True)
 
     def cluster_for(self, documents: int) -> Cluster | None:
         """The cluster to use for this many changed documents, or None: in process."""
@@ -279,14 +310,16 @@ class SyncEngine:
         pending_removals: dict[str, None],
         unchanged: int,
         report: SyncReport,
-        ahead: Prepared | None,
+        ahead: Prepared | _Ahead | None,
         *,
         should_stop: Callable[[], bool],
         trigger: str,
         on_commit: Callable[[CommitResult], None] | None,
+        producer: ThreadPoolExecutor | None = None,
     ) -> None:
-        """One commit per batch. On a cluster, the next batch is being extracted while this one
-        is embedded and committed: at most two batches of results are held (backpressure)."""
+        """One commit per batch. On a cluster, or with a ``producer`` thread in process, the
+        next batch is being extracted while this one is embedded and committed: at most two
+        batches of results are held (backpressure)."""
         ocr = getattr(source, "ocr", True)
         for n, batch in enumerate(batches):
             prepared, ahead = ahead, None
@@ -295,15 +328,18 @@ class SyncEngine:
                     prepared.cancel()
                 report.interrupted = True
                 return
-            if prepared is not None and self.cluster is not None and n + 1 < len(batches):
-                ahead = self.cluster.submit_extract(
-                    source,
-                    batches[n + 1],
-                    known,
-                    chunking=self.chunking,
-                    limits=self.limits,
-                    ocr=ocr,
-                )
+            if prepared is not None and n + 1 < len(batches):
+                if producer is not None:
+                    ahead = self._submit_local(producer, source, batches[n + 1], known, ocr)
+                elif self.cluster is not None:
+                    ahead = self.cluster.submit_extract(
+                        source,
+                        batches[n + 1],
+                        known,
+                        chunking=self.chunking,
+                        limits=self.limits,
+                        ocr=ocr,
+                    )
             last = n == len(batches) - 1
             counts = Counts()
             counts.documents["unchanged"] = unchanged if n == 0 else 0
@@ -344,7 +380,7 @@ class SyncEngine:
         *,
         take_all_removals: bool,
         trigger: str,
-        prepared: Prepared | None = None,
+        prepared: Prepared | _Ahead | None = None,
     ) -> CommitResult | None:
         started = time.monotonic()
         commit_id = new_commit_id()
@@ -665,6 +701,52 @@ class SyncEngine:
 
     # --- pieces ---------------------------------------------------------------------------------
 
+    def _submit_local(
+        self,
+        producer: ThreadPoolExecutor,
+        source: Source,
+        items: list[SourceItem],
+        known: dict[str, dict[str, Any]],
+        ocr: bool,
+    ) -> _Ahead:
+        # The model's tokenizer is loaded here, on the writer's thread, before the producer
+        # needs it: a deferred embedder is not loaded from two threads at once.
+        tokens, budget = self.embedder.tokens, self.embedder.max_input_tokens
+        futures = {
+            item.doc_id: producer.submit(
+                self._prepare, source, item, known.get(item.doc_id), ocr, tokens, budget
+            )
+            for item in items
+        }
+        return _Ahead(futures)
+
+    def _prepare(
+        self,
+        source: Source,
+        item: SourceItem,
+        row: dict[str, Any] | None,
+        ocr: bool,
+        tokens: Any,
+        budget: int,
+    ) -> dict[str, Any]:
+        """Read, hash, extract and chunk one document on the producer thread; the result has
+        the shape of a cluster worker's (``cluster.extract_job``), and bad input is a result,
+        never an exception."""
+        try:
+            data = source.read(item.key, self.limits.max_file_bytes)
+        except ExtractionError as exc:
+            return {"error": str(exc)}
+        content_hash = sha256_hex(data)
+        if row is not None and row["content_hash"] == content_hash:
+            return {"content_hash": content_hash, "same": True}
+        limits = self.limits if ocr else dataclasses.replace(self.limits, ocr=False)
+        try:
+            extracted = formats.extract(item.key, data, limits)
+            chunks = chunk_segments(item.doc_id, extracted.segments, tokens, self.chunking, budget)
+        except ExtractionError as exc:
+            return {"error": str(exc), "content_hash": content_hash}
+        return {"content_hash": content_hash, "extracted": extracted, "chunks": chunks}
+
     def _extract(
         self, item: SourceItem, data: bytes, moved_from: str | None, *, ocr: bool = True
     ) -> tuple[Extracted, str]:
@@ -680,17 +762,29 @@ class SyncEngine:
         return extracted, segments_to_json(extracted.segments)
 
     def _embed(self, texts: list[str]) -> list[np.ndarray]:
+        """Vectors of ``texts``, in their order. The model pads every text of a call to the
+        longest one, so the batch's texts go to it longest first, in steps of similar length:
+        measured on 924 chunk texts of the benchmark corpus with the bundled model, steps of
+        64 in document order spent 25% more time in the model than the same texts sorted."""
         if not texts:
             return []
+        # Characters stand in for tokens here (no second tokenisation); the embedder still
+        # sorts each step by its own token count.
+        order = sorted(range(len(texts)), key=lambda i: -len(texts[i]))
+        ordered = [texts[i] for i in order]
+        out: list[np.ndarray] = [np.empty(0, np.float32)] * len(texts)
         if self.cluster is not None and self._on_cluster:
             with self.progress.bar(len(texts), "embedding on the cluster") as bar:
-                return self.cluster.embed(texts, on_done=bar.update)
-        out: list[np.ndarray] = []
-        step = 64
+                vectors = self.cluster.embed(ordered, on_done=bar.update)
+            for i, v in zip(order, vectors, strict=True):
+                out[i] = v
+            return out
+        step = EMBED_STEP
         with self.progress.bar(len(texts), "embedding") as bar:
-            for i in range(0, len(texts), step):
-                part = self.embedder.embed(texts[i : i + step])
-                out.extend(part)
+            for start in range(0, len(ordered), step):
+                part = self.embedder.embed(ordered[start : start + step])
+                for i, v in zip(order[start : start + step], part, strict=True):
+                    out[i] = v
                 bar.update(len(part))
         return out
 
