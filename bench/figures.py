@@ -41,6 +41,7 @@ class Sizes:
     rescan_documents: int = 20_000
     scan_files: int = 100_000
     search_rows: int = 100_000
+    search_1m_rows: int = 1_000_000  # bench/search_1m.py; the same in quick()
     queries: int = 200
     filtered_queries: int = 30
     commits: int = 1_000
@@ -1368,12 +1369,15 @@ def keyword_sync_cost(bench: Bench) -> Figure:
     return Figure("keyword_sync_cost", value, rows)
 
 
+from bench.search_1m import search_1m  # noqa: E402 (it uses this module's helpers)
+
 FIGURES: dict[str, Callable[[Bench], Figure]] = {
     "edit_locality": edit_locality,
     "incremental_ratio": incremental_ratio,
     "rescan_ratio": rescan_ratio,
     "embed_efficiency": embed_efficiency,
     "search": search,
+    "search_1m": search_1m,
     "peak_rss_mb": peak_rss_mb,
     "many_commits": many_commits,
     "save_to_searchable": save_to_searchable,

@@ -391,12 +391,17 @@ class Store:
         """The k rows nearest to ``vector`` by cosine distance (``_distance`` = 1 - cosine).
 
         Exact while the table has no vector index; with one (see upkeep.ensure_indexes),
-        IVF search refined on the original vectors, which keeps recall@10 at 1.00 in our
-        measurement at 100,000 rows.
+        IVF search refined on the original vectors: recall@10 1.00 in our measurement at
+        100,000 rows, 0.99 at 1,000,000 (bench search_1m).
         """
         table = table if table is not None else self._t["chunks"]
         q = table.search(vector, vector_column_name="vector").metric("cosine")
-        q = q.nprobes(20).refine_factor(5)  # used only when an IVF index exists
+        # Used only when an IVF index exists. Measured with lancedb 0.40 on 2 cores, 1,000,000
+        # clustered rows, IVF_SQ with 1,000 partitions, one index and 200 queries: nprobes 20
+        # gave recall@10 0.972 (14 queries below 0.9, the worst 0.4), 40 gives 0.990 (6 below
+        # 0.9, the worst 0.7) and 60 gives 0.997, at p50 9.5, 10 and 11 ms. The misses are
+        # partitions not probed: refine_factor 10 instead of 5 changed no recall.
+        q = q.nprobes(40).refine_factor(5)
         if where is not None:
             q = q.where(where, prefilter=True)
         return q.select(columns).limit(k).to_arrow().to_pylist()
