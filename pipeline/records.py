@@ -7,6 +7,7 @@ database handle, so each stage can be called and tested on its own.
 from __future__ import annotations
 
 import json
+from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import NamedTuple
 
@@ -93,6 +94,26 @@ def fingerprint_string(size: int, mtime_ns: int = 0, inode: int = 0, tag: str = 
     """The one layout of a stored fingerprint, ``size:mtime_ns:inode:tag``. A folder walk calls
     it straight from stat data, so an unchanged file makes no Fingerprint object."""
     return f"{size}:{mtime_ns}:{inode}:{tag}"
+
+
+class StatFingerprints(dict[str, "tuple[int, int, int] | None"]):
+    """Item key -> (size, mtime_ns, inode) of a stored stat fingerprint with no tag, for a
+    folder walk to compare with a stat result without formatting a string per file; None
+    where the stored fingerprint is missing or is not a bare stat one (never equal)."""
+
+    @classmethod
+    def parse(cls, unchanged_if: Mapping[str, str | None]) -> StatFingerprints:
+        out = cls()
+        for key, text in unchanged_if.items():
+            parts = text.split(":") if text else ()
+            if len(parts) == 4 and not parts[3]:
+                try:
+                    out[key] = (int(parts[0]), int(parts[1]), int(parts[2]))
+                    continue
+                except ValueError:
+                    pass
+            out[key] = None
+        return out
 
 
 class SourceItem(NamedTuple):

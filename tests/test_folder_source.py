@@ -94,3 +94,40 @@ def test_the_one_pass_change_listing_agrees_with_listing_then_comparing(tmp_path
         "bay-2/note-02.md",
         "bay-2/note-new.md",
     ]
+
+
+def test_stat_fingerprints_keep_only_bare_stat_fingerprints(tmp_path):
+    from pipeline.records import Fingerprint, StatFingerprints
+
+    path = write(tmp_path / "a.md", "# A\n")
+    st = path.stat()
+    bare = Fingerprint(st.st_size, st.st_mtime_ns, st.st_ino).key()
+    parsed = StatFingerprints.parse(
+        {"a.md": bare, "tagged": "4:5:6:etag-1", "never": None, "odd": "x:y:z:"}
+    )
+    assert parsed == {
+        "a.md": (st.st_size, st.st_mtime_ns, st.st_ino),
+        "tagged": None,
+        "never": None,
+        "odd": None,
+    }
+    # The walk compares the parsed form and the string form alike.
+    source = FolderSource(name="s", root=tmp_path)
+    assert source.list_changes({"a.md": bare}) == ({"a.md"}, [])
+    assert source.list_changes(parsed)[1] == []
+
+
+def test_excludes_the_name_hint_cannot_summarise_still_apply(tmp_path):
+    # A glob that is neither "literal first character" nor "* then a literal" turns the
+    # shortcut off; the regex decides for every name, as fnmatch would (the reference).
+    import fnmatch
+
+    for name in ("keep.md", "draft-1.md", "draft-x.md", "notes.md"):
+        write(tmp_path / name, "# N\n")
+    source = FolderSource(name="s", root=tmp_path, exclude=("**/*-[0-9].md", "**/.*"))
+    keys, _ = source.list_changes({})
+    assert keys == {
+        n
+        for n in ("keep.md", "draft-1.md", "draft-x.md", "notes.md")
+        if not fnmatch.fnmatch(n, "*-[0-9].md")
+    }

@@ -17,7 +17,7 @@ import dataclasses
 import json
 import logging
 import time
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Callable, Sequence
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
 from typing import Any
@@ -63,14 +63,16 @@ class Listing:
     changed: list[SourceItem]
 
 
-def _list_changes(source: Source, unchanged_if: Mapping[str, str | None]) -> Listing:
+def _list_changes(source: Source, briefs: DocumentBriefs) -> Listing:
     """List a source and keep only what changed. A connector may do both in one pass
-    (``list_changes``, as the folder walk does, so an unchanged file costs one stat and one
-    string, not two objects); any other is listed whole and compared here."""
+    (``list_changes``, as the folder walk does, given the stored fingerprints as stat tuples,
+    so an unchanged file costs one stat and one tuple, not two objects); any other is listed
+    whole and compared here."""
     fast = getattr(source, "list_changes", None)
     if fast is not None:
-        keys, changed = fast(unchanged_if)
+        keys, changed = fast(briefs.stat_fingerprints)
         return Listing(keys, changed)
+    unchanged_if = briefs.unchanged_if
     keys = set()
     changed = []
     for item in source.list_items():
@@ -176,7 +178,7 @@ class SyncEngine:
             if prime is not None:
                 prime(self.store.stored_fingerprints(source.name))
             try:
-                listings.append((source, briefs, _list_changes(source, briefs.unchanged_if)))
+                listings.append((source, briefs, _list_changes(source, briefs)))
             except SourceError as exc:
                 exc.source = source.name  # which source, for status
                 raise

@@ -5,9 +5,12 @@ from __future__ import annotations
 import json
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
+from functools import cached_property
 from typing import Any
 
 import pyarrow as pa
+
+from pipeline.records import StatFingerprints
 
 FORMAT_VERSION = 1
 
@@ -90,6 +93,11 @@ class DocumentBriefs:
 
     unchanged_if: dict[str, str | None]
     content_hash: dict[str, str | None]
+
+    @cached_property
+    def stat_fingerprints(self) -> StatFingerprints:
+        """``unchanged_if`` as stat tuples, parsed once per briefs (a folder walk's form)."""
+        return StatFingerprints.parse(self.unchanged_if)
 
 
 TOMBSTONES_SCHEMA = pa.schema(
