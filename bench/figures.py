@@ -788,6 +788,9 @@ def search(bench: Bench) -> Figure:
         0.3 / np.sqrt(dim)
     ) * rng.standard_normal((bench.sizes.queries, dim)).astype(np.float32)
     queries /= np.linalg.norm(queries, axis=1, keepdims=True)
+    # float32 like the stored vectors: np.float64 noise made the queries float64, and numpy's
+    # exact baseline then converted the whole matrix on every query (a slower baseline).
+    queries = queries.astype(np.float32)
 
     # Exact scan first (what a small index does), then with the indexes a sync builds past its
     # size thresholds (pipeline/store/upkeep.py: ensure_indexes).
