@@ -49,3 +49,36 @@ def test_indexed_search_returns_the_exact_top_k(tmp_path, hash_embedder):
     for mode in ("vector", "hybrid"):
         filtered = ix.search("saddle height", k=3, source="guides", mode=mode)
         assert len(filtered) == 3 and {h.source for h in filtered} == {"guides"}, mode
+
+
+def test_the_vector_index_is_trained_again_once_the_table_has_grown_fourfold(
+    tmp_path, hash_embedder
+):
+    rng = random.Random(5)
+    root = tmp_path / "guides"
+    for n in range(5):
+        write(root / f"guide-{n:02d}.md", f"# Guide {n}\n\n" + paragraph(rng))
+    ix = make_index(tmp_path, hash_embedder)
+    ix.sync([root])
+    store = ix.store()
+    assert "chunks.vector (IVF_SQ)" in maintenance.ensure_indexes(store, vector_min_rows=1)
+    trained_on = store.settings()[maintenance.VECTOR_INDEX_ROWS_SETTING]
+    assert trained_on == store.count("chunks")
+    # Growth below the factor keeps the index as trained.
+    write(root / "guide-05.md", "# Guide 5\n\n" + paragraph(rng))
+    ix.sync([root])
+    assert not any("retrained" in c for c in maintenance.ensure_indexes(store))
+    for n in range(6, 6 + 4 * trained_on):
+        write(root / f"guide-{n:02d}.md", f"# Guide {n}\n\n" + paragraph(rng))
+    ix.sync([root])  # the sync's own upkeep retrains once the table has grown fourfold
+    rows = store.count("chunks")
+    assert rows >= maintenance.VECTOR_INDEX_GROWTH * trained_on
+    assert store.settings()[maintenance.VECTOR_INDEX_ROWS_SETTING] == rows
+    # Retraining is not an interrupted batch, and the index still gives numpy's exact answer.
+    assert ix.sync([root]).as_dict()["commit"] is None
+    vectors = np.array([r["vector"] for r in chunk_rows(ix)], dtype=np.float64)
+    ids = [r["chunk_id"] for r in chunk_rows(ix)]
+    q = hash_embedder.embed(["true the rear wheel"])[0].astype(np.float64)
+    cos = vectors @ q / (np.linalg.norm(vectors, axis=1) * np.linalg.norm(q))  # numpy reference
+    hits = ix.search("true the rear wheel", k=5, mode="vector")
+    assert [h.chunk_id for h in hits] == [ids[i] for i in np.argsort(-cos)[:5]]

@@ -37,6 +37,14 @@ SCALAR_INDEXES = {"chunks": ("doc_id", "text_hash", "source"), "vectors": ("text
 # build in 45-108 s; p50 12-26 ms (10 ms without the figure's numpy scans between queries);
 # recall@10 0.97-0.98 at nprobes 20, 0.99 at 40 (what Store.search probes).
 VECTOR_INDEX_MIN_ROWS = 20_000
+# The index's partitions are trained once, at sqrt(rows) of the table as it was; rows added
+# later are folded into those partitions, so a table that grows from 20,000 to 1,000,000 rows
+# would probe partitions fifty times fuller than planned. Once the table holds this many times
+# the rows the index was trained on, it is trained again at sqrt(rows) (geometric steps: the
+# retraining costs a bounded multiple of the last build, common practice for amortised growth).
+VECTOR_INDEX_GROWTH = 4
+#: The setting that records how many rows the vector index was last trained on.
+VECTOR_INDEX_ROWS_SETTING = "vector_index_rows"
 
 
 @dataclass
@@ -149,18 +157,22 @@ def ensure_indexes(
     created = ensure_scalar_indexes(store, scalar_min_rows)
     created += ensure_keyword_index(store)
     chunks = store.table("chunks")
-    if not _has_vector_index(chunks) and chunks.count_rows() >= vector_min_rows:
-        rows = chunks.count_rows()
-        with warnings.catch_warnings():
-            # lancedb 0.40 prefers a config object; these keyword arguments still work.
-            warnings.simplefilter("ignore", DeprecationWarning)
-            chunks.create_index(
-                metric="cosine",
-                vector_column_name="vector",
-                index_type="IVF_SQ",
-                num_partitions=max(1, int(math.sqrt(rows))),
-            )
-        created.append("chunks.vector (IVF_SQ)")
+    rows = chunks.count_rows()
+    if not _has_vector_index(chunks):
+        if rows >= vector_min_rows:
+            _train_vector_index(chunks, rows)
+            store.update_setting(VECTOR_INDEX_ROWS_SETTING, rows)
+            created.append("chunks.vector (IVF_SQ)")
+    else:
+        trained_on = store.settings().get(VECTOR_INDEX_ROWS_SETTING)
+        if trained_on is None:
+            # An index from before this setting: count from now on.
+            store.update_setting(VECTOR_INDEX_ROWS_SETTING, rows)
+        elif rows >= VECTOR_INDEX_GROWTH * int(trained_on):
+            log.info("retraining the vector index: %d rows, trained on %d", rows, int(trained_on))
+            _train_vector_index(chunks, rows)
+            store.update_setting(VECTOR_INDEX_ROWS_SETTING, rows)
+            created.append(f"chunks.vector retrained ({int(trained_on)} -> {rows} rows)")
     if created:
         chunks.checkout_latest()
         store.update_setting(MAINTAINED_VERSIONS["chunks"], int(chunks.version))
@@ -190,6 +202,21 @@ def ensure_keyword_index(store: Store, fold_rows: int = KEYWORD_FOLD_ROWS) -> li
         chunks.checkout_latest()
         store.update_setting(MAINTAINED_VERSIONS["chunks"], int(chunks.version))
     return done
+
+
+def _train_vector_index(chunks: Any, rows: int) -> None:
+    """(Re)build the IVF_SQ index with sqrt(rows) partitions; a new one replaces the old in
+    the same version, so readers see one or the other, never neither."""
+    with warnings.catch_warnings():
+        # lancedb 0.40 prefers a config object; these keyword arguments still work.
+        warnings.simplefilter("ignore", DeprecationWarning)
+        chunks.create_index(
+            metric="cosine",
+            vector_column_name="vector",
+            index_type="IVF_SQ",
+            num_partitions=max(1, int(math.sqrt(rows))),
+            replace=True,
+        )
 
 
 def _has_vector_index(table: Any) -> bool:
