@@ -999,8 +999,19 @@ def _folder_usage(path: Path) -> tuple[int, int, int]:
 
 def many_commits(bench: Bench) -> Figure:
     """Versions, files and disk use after N one-document syncs, and flat search latency before
-    and after. Uses the model-free hash embedder: the figure is about storage, not vectors."""
+    and after. Between the syncs runs what ``upwell watch`` runs after each of its batches: the
+    automatic compaction (``pipeline.store.autocompact``) with the service's default policy,
+    searches being quiet. Uses the model-free hash embedder: the figure is about storage, not
+    vectors.
+
+    ``p50_ratio_after`` is the flat search p50 after the syncs over before them, measured in
+    alternating pairs on the two versions of the chunks table (the one before the syncs is still
+    readable: nothing removes versions here), so a busy machine slows both sides alike.
+    ``p50_ratio_at_due`` is the same at the version the last automatic compaction found, the
+    most small fragments a search meets between two compactions."""
+    from pipeline.config import ServiceConfig
     from pipeline.index import SEARCH_COLUMNS, Index
+    from pipeline.store.autocompact import AutoCompactor, CompactionPolicy, SearchActivity
 
     corpus = bench.workdir / "commits-share"
     documents = 20
@@ -1012,33 +1023,90 @@ def many_commits(bench: Bench) -> Figure:
     rng = np.random.default_rng(3)
     queries = rng.standard_normal((30, 384)).astype(np.float32)
 
-    def flat_p50_ms() -> float:
+    def p50_seconds(table: Any = None) -> float:
         store = index.store()
-        store.table("chunks").checkout_latest()
         times = []
         for q in queries:
             started = time.perf_counter()
-            store.search(q, 10, SEARCH_COLUMNS)
+            store.search(q, 10, SEARCH_COLUMNS, table=table)
             times.append(time.perf_counter() - started)
-        return float(np.percentile(times, 50)) * 1000
+        return float(np.percentile(times, 50))
+
+    def flat_p50_ms() -> float:
+        index.store().table("chunks").checkout_latest()
+        return p50_seconds() * 1000
+
+    def paired_p50(version: int, rounds: int = 9) -> Paired:
+        """p50 at ``version`` over p50 before the syncs: each query is run on both versions
+        one after the other (in turn first), so a busy machine slows both sides alike; the
+        median over ``rounds`` of the 30 queries (see Paired)."""
+        store = index.store()
+        a, b = store.db.open_table("chunks"), store.db.open_table("chunks")
+        a.checkout(version)
+        b.checkout(version_before)
+
+        def timed(table: Any, q: np.ndarray) -> float:
+            started = time.perf_counter()
+            store.search(q, 10, SEARCH_COLUMNS, table=table)
+            return time.perf_counter() - started
+
+        a_p50, b_p50, ratios = [], [], []
+        for n in range(rounds):
+            a_times, b_times = [], []
+            for m, q in enumerate(queries):
+                if (n + m) % 2 == 0:
+                    a_times.append(timed(a, q))
+                    b_times.append(timed(b, q))
+                else:
+                    b_times.append(timed(b, q))
+                    a_times.append(timed(a, q))
+            a_p50.append(float(np.percentile(a_times, 50)))
+            b_p50.append(float(np.percentile(b_times, 50)))
+            ratios.append(a_p50[-1] / max(b_p50[-1], 1e-12))
+        return Paired(
+            ratio=statistics.median(ratios),
+            low=min(ratios),
+            high=max(ratios),
+            a_seconds=statistics.median(a_p50),
+            b_seconds=statistics.median(b_p50),
+            pairs=rounds,
+        )
 
     before_ms = flat_p50_ms()
     files_before, data_before, bytes_before = _folder_usage(index_dir)
     version_before = int(index.store().table("chunks").version)
+    # The service's policy with its defaults, built as the service builds it; no search runs
+    # meanwhile, so a due compaction never waits here.
+    compactor = AutoCompactor(CompactionPolicy.from_service(ServiceConfig()))
+    searches = SearchActivity()
+    compact_seconds: list[float] = []
+    due_version: int | None = None
+    sync_versions = 0
     started = time.perf_counter()
     for n in range(bench.sizes.commits):
         corpora.write_document(
             corpus, (n % documents) * len(corpora.FORMATS), edits=n // documents + 1
         )
+        version = int(index.store().table("chunks").version)
         index.sync([corpus])
+        synced = int(index.store().table("chunks").version)
+        sync_versions += synced - version
+        with index.writing():
+            compact_started = time.perf_counter()
+            if compactor.run(index.store(), searches) is not None:
+                compact_seconds.append(time.perf_counter() - compact_started)
+                due_version = synced
     seconds = time.perf_counter() - started
     after_ms = flat_p50_ms()
     files_after, data_after, bytes_after = _folder_usage(index_dir)
     version_after = int(index.store().table("chunks").version)
+    after_pair = paired_p50(version_after)
+    due_pair = paired_p50(due_version) if due_version is not None else None
     value = {
         "syncs": bench.sizes.commits,
         "chunks_versions": version_after,
         "chunks_versions_before": version_before,
+        "chunks_versions_of_syncs": sync_versions,
         "files": files_after,
         "files_before": files_before,
         "chunks_data_files": data_after,
@@ -1048,6 +1116,15 @@ def many_commits(bench: Bench) -> Figure:
         "search_p50_ms_before": before_ms,
         "search_p50_ms_after": after_ms,
         "search_slowdown": after_ms / before_ms,
+        "p50_ratio_after": after_pair.ratio,
+        "p50_ratio_after_pairs": after_pair.as_dict(),
+        "p50_ratio_at_due": due_pair.ratio if due_pair is not None else None,
+        "auto_compaction": {
+            "policy": compactor.status()["policy"],
+            "runs": len(compact_seconds),
+            "mean_seconds": statistics.fmean(compact_seconds) if compact_seconds else None,
+            "chunks_versions_made": version_after - version_before - sync_versions,
+        },
     }
     # Maintenance as the service runs it nightly (keeping 30 days: no version is old enough to
     # remove here), then with a retention of zero days, as after a month of commits.
@@ -1075,6 +1152,7 @@ def many_commits(bench: Bench) -> Figure:
         },
         "search_slowdown": cleaned_ms / before_ms,
     }
+    runs = len(compact_seconds)
     rows = [
         (
             f"after {bench.sizes.commits} one-doc syncs: versions, files",
@@ -1084,12 +1162,32 @@ def many_commits(bench: Bench) -> Figure:
         ),
         ("  chunks data files, disk", f"{data_after}, {bytes_after / 2**20:.1f} MB", "", "info"),
         (
-            "flat search p50 after / before",
-            f"{after_ms / before_ms:.1f} ({before_ms:.1f} -> {after_ms:.1f} ms)",
-            "back after maintenance",
+            "  automatic compactions between the syncs",
+            f"{runs}"
+            + (f", {statistics.fmean(compact_seconds) * 1000:.0f} ms each" if runs else "")
+            + f"; {value['auto_compaction']['chunks_versions_made']} chunks versions",
+            "",
             "info",
         ),
-        ("  (info) mean seconds per sync", f"{seconds / bench.sizes.commits:.3f} s", "", "info"),
+        (
+            "flat search p50 after / before the syncs (paired)",
+            f"{after_pair.ratio:.2f} ({after_pair.spread()}; "
+            f"{after_pair.b_seconds * 1000:.1f} -> {after_pair.a_seconds * 1000:.1f} ms)",
+            "1.2 or less",
+            _verdict(after_pair.ratio <= 1.2),
+        ),
+        (
+            "  (info) the same where the last compaction was due",
+            f"{due_pair.ratio:.2f} ({due_pair.spread()})" if due_pair is not None else "none due",
+            "",
+            "info",
+        ),
+        (
+            "  (info) mean seconds per sync, its compaction included",
+            f"{seconds / bench.sizes.commits:.3f} s",
+            "",
+            "info",
+        ),
         (
             "after maintain (compaction): files, data files",
             f"{files_c}, {data_c}; search p50 {compacted_ms:.1f} ms",

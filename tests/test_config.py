@@ -66,6 +66,10 @@ def test_bad_durations_are_refused(text):
         ("[service]\nsettle = 1\n", "service.settle", "string"),
         ('[service]\nmaintenance_at = "25:00"\n', "service.maintenance_at", "time of day"),
         ("[service]\nbatch_documents = 0\n", "service.batch_documents", "at least 1"),
+        ("[service]\ncompact_fragments = 0\n", "service.compact_fragments", "at least 1"),
+        ("[service]\ncompact_every = 600\n", "service.compact_every", "string"),
+        ('[service]\ncompact_quiet = "0s"\n', "service.compact_quiet", "positive"),
+        ('[service]\nauto_compact = "yes"\n', "service.auto_compact", "true"),
         ('[[source]]\npath = "/srv/x"\n', "source[0].name", "required"),
         ('[[source]]\nname = "a b"\npath = "/x"\n', "source[0].name", "letters"),
         ('[[source]]\nname = "hb"\npath = "/x"\nevery = "soon"\n', "source 'hb'.every", "dur"),
@@ -89,6 +93,17 @@ def test_a_bad_file_is_one_line_naming_the_key(tmp_path, body, key, words):
     assert "\n" not in message
     assert message.startswith(f"config {path}: ")
     assert key in message and words in message
+
+
+def test_automatic_compaction_keys(tmp_path):
+    path = write(
+        tmp_path / "upwell.toml",
+        '[service]\nauto_compact = false\ncompact_fragments = 6\ncompact_every = "15m"\n'
+        'compact_quiet = "5s"\n',
+    )
+    service = load_config(path).service
+    assert service.auto_compact is False
+    assert (service.compact_fragments, service.compact_every, service.compact_quiet) == (6, 900, 5)
 
 
 def test_cli_reports_a_bad_config_as_one_line_with_exit_2(tmp_path, capsys):

@@ -120,6 +120,12 @@ class ServiceConfig:
     keep_days: float = (
         defaults.KEEP_DAYS
     )  # nightly maintenance keeps versions this many days (tagged: always)
+    # Automatic compaction between syncs (files only, no version removed). The defaults are
+    # measured: see pipeline.store.autocompact, whose constants a test keeps them equal to.
+    auto_compact: bool = True
+    compact_fragments: int = 4  # due once this many small chunks fragments were written...
+    compact_every: float = 600.0  # ...or this long after the last compaction, if any were
+    compact_quiet: float = 2.0  # and it starts once searches have paused this long
 
 
 @dataclass(frozen=True)
@@ -287,6 +293,10 @@ def _parse_service(check: _Checker, table: Mapping[str, Any]) -> ServiceConfig:
         "maintenance_at",
         "paused",
         "keep_days",
+        "auto_compact",
+        "compact_fragments",
+        "compact_every",
+        "compact_quiet",
     )
     check.only_keys("service", table, keys)
     d = ServiceConfig()
@@ -313,6 +323,20 @@ def _parse_service(check: _Checker, table: Mapping[str, Any]) -> ServiceConfig:
     keep = d.keep_days
     if "keep_days" in table:
         keep = check.integer("service.keep_days", table["keep_days"], minimum=1)
+    auto_compact = d.auto_compact
+    if "auto_compact" in table:
+        auto_compact = check.boolean("service.auto_compact", table["auto_compact"])
+    fragments = d.compact_fragments
+    if "compact_fragments" in table:
+        fragments = check.integer(
+            "service.compact_fragments", table["compact_fragments"], minimum=1
+        )
+    every = d.compact_every
+    if "compact_every" in table:
+        every = check.duration("service.compact_every", table["compact_every"])
+    quiet = d.compact_quiet
+    if "compact_quiet" in table:
+        quiet = check.duration("service.compact_quiet", table["compact_quiet"])
     return ServiceConfig(
         settle_seconds=settle if settle is not None else d.settle_seconds,
         batch_seconds=window if window is not None else d.batch_seconds,
@@ -321,6 +345,10 @@ def _parse_service(check: _Checker, table: Mapping[str, Any]) -> ServiceConfig:
         maintenance_at=at,
         paused=paused,
         keep_days=float(keep),
+        auto_compact=auto_compact,
+        compact_fragments=fragments,
+        compact_every=every,
+        compact_quiet=quiet,
     )
 
 
@@ -503,6 +531,10 @@ listen = "127.0.0.1:8765"
 # maintenance_at = "03:30" # local time of the nightly maintenance
 # paused = false           # true: keep watching, write nothing (reload with SIGHUP)
 # keep_days = 30           # maintenance removes older versions (tagged ones are kept)
+# auto_compact = true      # merge small data files between syncs (no version is removed)
+# compact_fragments = 4    # ... once this many were written since the last time
+# compact_every = "10m"    # ... or this long after it, whichever comes first
+# compact_quiet = "2s"     # ... once searches have paused this long
 
 # [cluster]
 # Extract and embed big batches (a first build, a reconcile after downtime) on a Dask cluster;

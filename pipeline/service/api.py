@@ -20,6 +20,7 @@ are paginated and a search takes at most 100 hits.
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import hmac
 import json
@@ -243,9 +244,13 @@ class _Handler(BaseHTTPRequestHandler):
             live = self.server.service.live()
             data = reader.read(lambda index: views.overview(index, live))
             data["service"]["pid"] = os.getpid()
+            compaction = getattr(self.server.service, "compaction_status", None)
+            if compaction is not None:  # `upwell serve` writes nothing, so it has none
+                data["service"]["compaction"] = compaction()
             return data
         if twin == "/search":
-            data = reader.read(lambda index: views.search(index, query, default_k=5))
+            with self._searching():
+                data = reader.read(lambda index: views.search(index, query, default_k=5))
             if not data["query"]:  # the empty search form: what it offers to choose from
                 data["choices"] = reader.read(views.search_choices)
             return data
@@ -258,6 +263,12 @@ class _Handler(BaseHTTPRequestHandler):
         if twin == "/failures":
             return reader.read(lambda index: views.failures(index, query))
         raise NotFound(f"no view {twin}")
+
+    def _searching(self) -> contextlib.AbstractContextManager[None]:
+        """Note a search while it runs, so the writer holds back a compaction until searches
+        pause (``Service.searches``; a stand-in service without one notes nothing)."""
+        activity = getattr(self.server.service, "searches", None)
+        return activity.searching() if activity is not None else contextlib.nullcontext()
 
     def _page(self, path: str, query: dict[str, list[str]]) -> None:
         twin, template, title = PAGES[path]
@@ -278,7 +289,8 @@ class _Handler(BaseHTTPRequestHandler):
                 context["status"] = self._view(twin, query)
                 context["refresh"] = REFRESH_SECONDS if live.watching else 0
             elif path == "/console/search":
-                context["result"] = reader.read(lambda index: views.search(index, query))
+                with self._searching():
+                    context["result"] = reader.read(lambda index: views.search(index, query))
                 context["choices"] = reader.read(views.search_choices)
             elif path == "/console/history":
                 context["data"] = self._view(twin, query)

@@ -19,6 +19,9 @@ Guarantees:
   (``pipeline.service.control``) and run in the writer thread between two batches, with the
   caller's prompts and output. A rollback with ``--pause`` stops syncing at once; ``resume``
   lifts it and queues a reconcile.
+- Between batches, and on idle turns while one is waiting, the writer merges the chunks table's
+  small data files once that is due and searches have paused (``pipeline.store.autocompact``:
+  files only, no version removed); ``/status`` shows the last run under ``service.compaction``.
 - SIGTERM/SIGINT stop intake, let the batch in hand commit, and return 0; what was queued but not
   synced is picked up by the reconcile at the next start. SIGHUP reloads the configuration.
 """
@@ -48,6 +51,7 @@ from pipeline.index import Index
 from pipeline.service.control import ControlServer, Session
 from pipeline.service.metrics import ServiceMetrics
 from pipeline.service.watching import POLL_SECONDS, SettleQueue, SourceEvents, WorkQueue
+from pipeline.store.autocompact import AutoCompactor, CompactionPolicy, SearchActivity
 
 log = logging.getLogger("upwell.service")
 
@@ -91,6 +95,10 @@ class Service:
         self.started_at = time.time()
         self._commands = commands
         self._control: ControlServer | None = None
+        # The HTTP API notes each search here; the writer compacts only once they pause.
+        self.searches = SearchActivity()
+        self.compactor = AutoCompactor(CompactionPolicy.from_service(config.service))
+        self._compaction_waiting_logged = False
 
     # --- what the HTTP API reads ------------------------------------------------------------
 
@@ -120,6 +128,10 @@ class Service:
 
     def queue_depth(self) -> int:
         return len(self.settle) + self.work.depth()
+
+    def compaction_status(self) -> dict[str, Any]:
+        """The automatic compaction: its policy, whether one is due or waiting, the last run."""
+        return self.compactor.status()
 
     def live(self) -> Live:
         """What the console and ``/status`` show of the service beside the index's own record."""
@@ -238,6 +250,7 @@ class Service:
             self.index.set_cluster(fresh.cluster, fallback=True)
         self.config = fresh
         self.settle.settle_seconds = fresh.service.settle_seconds
+        self.compactor.policy = CompactionPolicy.from_service(fresh.service)
         self.index.batch_documents = fresh.service.batch_documents
         self._apply_sources(before, after)
         self._schedule_jobs()
@@ -364,6 +377,8 @@ class Service:
         while not self.stop_event.is_set():
             work = self.work.take(self.stop_event, service.batch_seconds, service.batch_documents)
             if work is None:
+                if self.compactor.worth_a_look():
+                    self.compact_if_due()
                 continue
             for command in work.commands:
                 self.busy.set()
@@ -396,6 +411,7 @@ class Service:
             finally:
                 self.busy.clear()
             self.metrics.queue_depth.set(self.queue_depth())
+            self.compact_if_due()
 
     # --- writing (writer thread only) -----------------------------------------------------------
 
@@ -555,6 +571,51 @@ class Service:
                 f"failed {f.source}/{f.path}: {f.reason}",
                 extra={"fields": {"event": "failure", **f.as_dict()}},
             )
+
+    def compact_if_due(self) -> dict[str, Any] | None:
+        """Merge small data files if that is due and searches have paused (writer thread only,
+        between batches, so never during a commit). Logs what it did; a failure is logged,
+        counted and shown in /status, never raised: the next due point tries again."""
+        if self.paused() or self.stop_event.is_set():
+            return None  # paused: nothing is written, and syncs add no fragments meanwhile
+        deferred = self.compactor.deferred
+        try:
+            store = self.index.store()
+        except UpwellError:
+            return None  # no index yet
+        try:
+            report = self.compactor.run(store, self.searches)
+        except Exception as exc:
+            self._compaction_waiting_logged = False
+            self.metrics.record_failure("compaction")
+            log.error(
+                f"automatic compaction failed: {exc}; tried again when next due",
+                extra={"fields": {"event": "failure", "reason": str(exc)}},
+            )
+            return None
+        finally:
+            if self.compactor.deferred > deferred:
+                self.metrics.compactions_deferred.inc(self.compactor.deferred - deferred)
+        if report is None:
+            if self.compactor.deferred > deferred and not self._compaction_waiting_logged:
+                self._compaction_waiting_logged = True
+                log.info(
+                    f"compaction due ({self.compactor.due_reason}): waiting for searches to pause",
+                    extra={"fields": {"event": "compaction_waiting"}},
+                )
+            return None
+        self._compaction_waiting_logged = False
+        self.metrics.record_compaction()
+        merged = ", ".join(
+            f"{name} {t['fragments'][0]} -> {t['fragments'][1]} fragments"
+            for name, t in report["tables"].items()
+        )
+        log.info(
+            f"compacted ({report['reason']}): {merged or 'nothing to merge'} in "
+            f"{report['seconds']:.2f}s; no version removed",
+            extra={"fields": {"event": "compaction", **report}},
+        )
+        return report
 
     def maintain(self) -> None:
         """Run the index's maintenance, if this version of the engine has one."""

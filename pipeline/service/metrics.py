@@ -1,9 +1,9 @@
 """Prometheus metrics of the service, in a registry of its own (never the process-global one).
 
-The service records each sync it runs (``record_sync``), each failure (``record_failure``) and
-its queue depth; ``render()`` is the text exposition format that ``GET /metrics`` serves.
-Failure reasons are folded into a few fixed classes, so the label set stays small however many
-different messages documents produce.
+The service records each sync it runs (``record_sync``), each failure (``record_failure``), each
+automatic compaction (``record_compaction``) and its queue depth; ``render()`` is the text
+exposition format that ``GET /metrics`` serves. Failure reasons are folded into a few fixed
+classes, so the label set stays small however many different messages documents produce.
 """
 
 from __future__ import annotations
@@ -96,6 +96,19 @@ class ServiceMetrics:
             "Unix time of the last successful commit by this process",
             registry=r,
         )
+        self.compactions = Counter(
+            "upwell_compactions", "Automatic compactions run by this process", registry=r
+        )
+        self.compactions_deferred = Counter(
+            "upwell_compactions_deferred",
+            "Times a due automatic compaction waited for searches to pause",
+            registry=r,
+        )
+        self.last_compaction = Gauge(
+            "upwell_last_compaction_timestamp_seconds",
+            "Unix time of the last automatic compaction by this process",
+            registry=r,
+        )
 
     def record_sync(self, report: Mapping[str, Any], seconds: float) -> None:
         """Count one sync report (``SyncReport.as_dict()``) and its duration."""
@@ -108,6 +121,11 @@ class ServiceMetrics:
         self.chunks_reused.inc(report["chunks"]["reused"])
         for failure in report["failures"]:
             self.failures.labels(reason=reason_class(failure["reason"])).inc()
+
+    def record_compaction(self) -> None:
+        """One automatic compaction done (a failed one is a ``compaction`` failure)."""
+        self.compactions.inc()
+        self.last_compaction.set(time.time())
 
     def record_failure(self, reason: str) -> None:
         """A failure that is not a document's: ``source_unreachable``, ``confirmation`` ..."""
