@@ -73,6 +73,10 @@ def test_the_build_indexes_every_generated_document_and_modifies_one_percent(toy
     # 1% of 12 rounds to 0; the corpus always changes at least one document.
     assert build["documents_changed"] == 1 == build["incremental_documents_modified"]
     assert 0 < build["incremental_embedded"] < build["full_embedded"]
+    # The raw embedder is timed on exactly the texts the build embedded, before and after it.
+    detail = toy_run["json"]["embed_efficiency_detail"]
+    assert detail["raw_texts"] == detail["raw_texts_in_index"] == build["full_embedded"]
+    assert detail["ratio_min"] <= toy_run["json"]["embed_efficiency"] <= detail["ratio_max"]
 
 
 def test_counts_of_the_rescan_and_commit_figures(toy_run: dict) -> None:
@@ -81,7 +85,7 @@ def test_counts_of_the_rescan_and_commit_figures(toy_run: dict) -> None:
     assert detail["scan_files"] == TOY.scan_files
     commits = toy_run["json"]["many_commits"]
     # One sync of one changed document writes exactly one new version of the chunks table.
-    assert commits["chunks_versions"] - commits["chunks_versions_before"] == TOY.commits
+    assert commits["chunks_versions_of_syncs"] == TOY.commits
 
 
 def test_edit_locality_counts_are_bounded_by_the_whole_document(toy_run: dict) -> None:
