@@ -17,6 +17,7 @@ from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
+import lxml.html
 import pyarrow as pa
 import pytest
 
@@ -278,7 +279,8 @@ def _get(service: Any, path: str) -> Any:
     port = service._http.server_address[1]
     with urllib.request.urlopen(f"http://127.0.0.1:{port}{path}", timeout=30) as response:
         body = response.read()
-    return body.decode() if path == "/metrics" else json.loads(body)
+    text = path == "/metrics" or path.startswith("/console/")
+    return body.decode() if text else json.loads(body)
 
 
 @contextlib.contextmanager
@@ -312,6 +314,13 @@ def add_notes(service: Any, share: Path, numbers: range) -> None:
         wait_for(f"note {n} to be committed", lambda h=had: commits(service) > h, START_DEADLINE)
 
 
+def console_compaction(service: Any) -> str:
+    """The Compaction row of the console's overview page, as a reader sees it (lxml.html)."""
+    page = lxml.html.fromstring(_get(service, "/console/"))
+    (row,) = page.xpath('//dt[text()="Compaction"]/following-sibling::dd')
+    return " ".join(row.text_content().split())
+
+
 def test_the_service_holds_a_due_compaction_during_a_search_burst_then_runs_it(tmp_path):
     share = tmp_path / "share"
     note(share, 0)
@@ -341,6 +350,9 @@ def test_the_service_holds_a_due_compaction_during_a_search_burst_then_runs_it(t
             stop_burst.set()
             searcher.join(timeout=30)
         assert compaction["due"] and compaction["runs"] == 0 and compaction["last"] is None
+        assert "waiting" in console_compaction(service) and "searches" in console_compaction(
+            service
+        )
         assert small_fragments(Index(service.index.path).store()) >= 3
         # The burst is over; the operator shortens the quiet window and reloads (SIGHUP).
         make_config(tmp_path, {"share": share}, **{**settings, "compact_quiet": "0.5s"})
@@ -353,6 +365,7 @@ def test_the_service_holds_a_due_compaction_during_a_search_burst_then_runs_it(t
         compaction = wait_for("the held-back compaction", compacted, START_DEADLINE)
         assert compaction["last"]["tables"]["chunks"]["fragments"][1] < 3
         assert compaction["last_error"] is None and compaction["due"] is None
+        assert console_compaction(service).startswith("1 run, last at ")
         metrics = _get(service, "/metrics")
         assert re.search(r"^upwell_compactions_total 1\.0$", metrics, re.M)
         deferred = re.search(r"^upwell_compactions_deferred_total (\S+)$", metrics, re.M)
