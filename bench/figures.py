@@ -1000,7 +1000,7 @@ def _folder_usage(path: Path) -> tuple[int, int, int]:
 def many_commits(bench: Bench) -> Figure:
     """Versions, files and disk use after N one-document syncs, and flat search latency before
     and after. Between the syncs runs what ``upwell watch`` runs after each of its batches: the
-    automatic compaction (``pipeline.store.autocompact``) with the service's default policy,
+    automatic compaction (``pipeline.engine.autocompact``) with the service's default policy,
     searches being quiet. Uses the model-free hash embedder: the figure is about storage, not
     vectors.
 
@@ -1011,7 +1011,7 @@ def many_commits(bench: Bench) -> Figure:
     most small fragments a search meets between two compactions."""
     from pipeline.config import ServiceConfig
     from pipeline.index import SEARCH_COLUMNS, Index
-    from pipeline.store.autocompact import AutoCompactor, CompactionPolicy, SearchActivity
+    from pipeline.engine.autocompact import AutoCompactor, CompactionPolicy, SearchActivity
 
     corpus = bench.workdir / "commits-share"
     documents = 20

@@ -25,8 +25,8 @@ from pipeline.config import ServiceConfig, load_config
 from pipeline.engine.recovery import interrupted
 from pipeline.errors import StoreError
 from pipeline.index import Index
-from pipeline.store import autocompact
-from pipeline.store.autocompact import (
+from pipeline.engine import autocompact
+from pipeline.engine.autocompact import (
     AutoCompactor,
     CompactionPolicy,
     SearchActivity,
@@ -92,7 +92,7 @@ def test_search_activity_is_not_quiet_while_a_search_runs():
 
 def test_the_service_defaults_are_the_measured_ones():
     # The config module cannot import the store (it is read before LanceDB loads), so its
-    # defaults are written out there; they must stay those pipeline.store.autocompact measured.
+    # defaults are written out there; they must stay those pipeline.engine.autocompact measured.
     policy = CompactionPolicy.from_service(ServiceConfig())
     assert policy == CompactionPolicy()
     assert (policy.fragments, policy.every, policy.quiet) == (

@@ -121,7 +121,7 @@ class ServiceConfig:
         defaults.KEEP_DAYS
     )  # nightly maintenance keeps versions this many days (tagged: always)
     # Automatic compaction between syncs (files only, no version removed). The defaults are
-    # measured: see pipeline.store.autocompact, whose constants a test keeps them equal to.
+    # measured: see pipeline.engine.autocompact, whose constants a test keeps them equal to.
     auto_compact: bool = True
     compact_fragments: int = 4  # due once this many small chunks fragments were written...
     compact_every: float = 600.0  # ...or this long after the last compaction, if any were

@@ -20,7 +20,7 @@ Guarantees:
   caller's prompts and output. A rollback with ``--pause`` stops syncing at once; ``resume``
   lifts it and queues a reconcile.
 - Between batches, and on idle turns while one is waiting, the writer merges the chunks table's
-  small data files once that is due and searches have paused (``pipeline.store.autocompact``:
+  small data files once that is due and searches have paused (``pipeline.engine.autocompact``:
   files only, no version removed); ``/status`` shows the last run under ``service.compaction``.
 - SIGTERM/SIGINT stop intake, let the batch in hand commit, and return 0; what was queued but not
   synced is picked up by the reconcile at the next start. SIGHUP reloads the configuration.
@@ -51,7 +51,7 @@ from pipeline.index import Index
 from pipeline.service.control import ControlServer, Session
 from pipeline.service.metrics import ServiceMetrics
 from pipeline.service.watching import POLL_SECONDS, SettleQueue, SourceEvents, WorkQueue
-from pipeline.store.autocompact import AutoCompactor, CompactionPolicy, SearchActivity
+from pipeline.engine.autocompact import AutoCompactor, CompactionPolicy, SearchActivity
 
 log = logging.getLogger("upwell.service")
 
