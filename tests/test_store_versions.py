@@ -15,7 +15,7 @@ from pathlib import Path
 
 import lancedb
 
-from pipeline.store.tables import STAMP_SETTLE_NS, Store
+from pipeline.store.tables import COARSE_STAMP_SETTLE_NS, STAMP_SETTLE_NS, Store
 
 SETTINGS = {"format_version": 1, "model": "hash", "model_id": "hash", "dimension": 8}
 
@@ -59,7 +59,9 @@ def test_a_write_by_another_process_is_seen_after_refresh_even_on_a_trusted_stam
         "import sys; from pipeline.store.tables import Store; "
         "Store.open(sys.argv[1]).update_setting('written_elsewhere', 'yes')"
     )
-    subprocess.run([sys.executable, "-c", code, str(path)], check=True, cwd=Path(__file__).parents[1])
+    subprocess.run(
+        [sys.executable, "-c", code, str(path)], check=True, cwd=Path(__file__).parents[1]
+    )
     reader.refresh()
     assert reader.version("settings") == _latest(path, "settings") == before + 1
     assert reader.settings()["written_elsewhere"] == "yes"
@@ -71,14 +73,32 @@ def test_stamps_younger_than_the_settle_time_are_not_trusted(tmp_path: Path) -> 
     # stamp must not be kept, so a second writer's change within the tick is still seen.
     path = tmp_path / "ix"
     Store.create(path, SETTINGS)
+    folder = path / "settings.lance" / "_versions"
+    now = time.time_ns() + 1  # "just written", and not a whole multiple of 10 ms
+    os.utime(folder, ns=(now, now))
     reader = Store.open(path)
     reader.refresh()
-    assert "settings" not in reader._known  # just written: younger than STAMP_SETTLE_NS
+    assert "settings" not in reader._known
     writer = Store.open(path)
-    folder = path / "settings.lance" / "_versions"
-    stamp = folder.stat().st_mtime_ns
     writer.update_setting("second", 2)
-    os.utime(folder, ns=(stamp, stamp))  # as if the write fell in the same tick
+    os.utime(folder, ns=(now, now))  # as if the write fell in the same tick
     reader.refresh()
     assert reader.settings()["second"] == 2
-    assert STAMP_SETTLE_NS >= 1_000_000_000  # longer than the coarsest common mtime tick
+    assert STAMP_SETTLE_NS >= 50_000_000  # several ticks of a 100 Hz kernel clock (from memory)
+
+
+def test_a_whole_second_mtime_waits_for_the_coarse_settle_time(tmp_path: Path) -> None:
+    # A file system that keeps whole seconds (FAT keeps two, from memory) shows mtimes that
+    # are whole multiples of 10 ms: such a stamp is trusted only after the longer wait.
+    path = tmp_path / "ix"
+    Store.create(path, SETTINGS)
+    folder = path / "settings.lance" / "_versions"
+    second = (time.time_ns() // 1_000_000_000 - 1) * 1_000_000_000  # 1-2 s ago, whole second
+    os.utime(folder, ns=(second, second))
+    reader = Store.open(path)
+    reader.refresh()
+    assert "settings" not in reader._known
+    older = second - COARSE_STAMP_SETTLE_NS
+    os.utime(folder, ns=(older, older))
+    reader.refresh()
+    assert "settings" in reader._known

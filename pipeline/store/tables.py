@@ -565,14 +565,20 @@ class Store:
 
 
 #: A folder stamp is trusted once its mtime is this far in the past. File systems keep mtimes
-#: to a clock tick (a few ms on Linux; 1-2 s on some network and FAT file systems), so two
-#: changes within one tick can leave the same mtime; a folder untouched for longer than a tick
-#: gets a new mtime from its next change (the "racy timestamp" rule git applies to its index).
-STAMP_SETTLE_NS = 2_000_000_000
+#: to a clock tick, so two changes within one tick can leave the same mtime; a folder untouched
+#: for longer than a tick gets a new mtime from its next change (the "racy timestamp" rule git
+#: applies to its index). Linux file systems stamp with the kernel's coarse clock, one tick of
+#: 1-10 ms (from memory: HZ is 100 to 1000), so a tenth of a second is ten ticks or more.
+STAMP_SETTLE_NS = 100_000_000
+#: A file system with whole-second (or 2-second, FAT) mtimes shows as an mtime that is a whole
+#: multiple of 10 ms; such a stamp is trusted only after this long.
+COARSE_STAMP_SETTLE_NS = 3_000_000_000
 
 
 def _settled(stamp: tuple[int, int]) -> bool:
-    return time.time_ns() - stamp[1] > STAMP_SETTLE_NS
+    mtime = stamp[1]
+    settle = COARSE_STAMP_SETTLE_NS if mtime % 10_000_000 == 0 else STAMP_SETTLE_NS
+    return time.time_ns() - mtime > settle
 
 
 def _vectors_to_numpy(column: pa.ChunkedArray | pa.Array) -> np.ndarray:
