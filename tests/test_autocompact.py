@@ -22,9 +22,6 @@ import pyarrow as pa
 import pytest
 
 from pipeline.config import ServiceConfig, load_config
-from pipeline.engine.recovery import interrupted
-from pipeline.errors import StoreError
-from pipeline.index import Index
 from pipeline.engine import autocompact
 from pipeline.engine.autocompact import (
     AutoCompactor,
@@ -32,6 +29,9 @@ from pipeline.engine.autocompact import (
     SearchActivity,
     small_fragments,
 )
+from pipeline.engine.recovery import interrupted
+from pipeline.errors import StoreError
+from pipeline.index import Index
 from pipeline.store.schema import MAINTAINED_VERSIONS
 from pipeline.verify import verify_index
 from tests.conftest import write

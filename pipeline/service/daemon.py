@@ -44,6 +44,7 @@ from watchdog.observers import Observer
 
 from pipeline.config import Config, SourceConfig, load_config
 from pipeline.console.views import Live
+from pipeline.engine.autocompact import AutoCompactor, CompactionPolicy, SearchActivity
 from pipeline.engine.reports import SyncReport
 from pipeline.errors import ConfirmationRequired, SourceError, SyncPaused, UpwellError
 from pipeline.history import PAUSED
@@ -51,7 +52,6 @@ from pipeline.index import Index
 from pipeline.service.control import ControlServer, Session
 from pipeline.service.metrics import ServiceMetrics
 from pipeline.service.watching import POLL_SECONDS, SettleQueue, SourceEvents, WorkQueue
-from pipeline.engine.autocompact import AutoCompactor, CompactionPolicy, SearchActivity
 
 log = logging.getLogger("upwell.service")
 
