@@ -115,6 +115,18 @@ class Paired:
             "pairs": self.pairs,
         }
 
+    @classmethod
+    def of(cls, a_times: list[float], b_times: list[float], ratios: list[float]) -> Paired:
+        """The median ratio, its spread and each side's median, from one ratio per pair."""
+        return cls(
+            ratio=statistics.median(ratios),
+            low=min(ratios),
+            high=max(ratios),
+            a_seconds=statistics.median(a_times),
+            b_seconds=statistics.median(b_times),
+            pairs=len(ratios),
+        )
+
     def spread(self) -> str:
         return f"{self.low:.2f}-{self.high:.2f} over {self.pairs} pairs"
 
@@ -138,14 +150,7 @@ def paired(a: Callable[[], object], b: Callable[[], object], pairs: int = 7) -> 
         a_times.append(ta)
         b_times.append(tb)
         ratios.append(ta / max(tb, 1e-12))
-    return Paired(
-        ratio=statistics.median(ratios),
-        low=min(ratios),
-        high=max(ratios),
-        a_seconds=statistics.median(a_times),
-        b_seconds=statistics.median(b_times),
-        pairs=pairs,
-    )
+    return Paired.of(a_times, b_times, ratios)
 
 
 def _best_of(repeats: int, action: Callable[[], object]) -> float:
@@ -777,29 +782,34 @@ def _exact_top_k(matrix: np.ndarray, query: np.ndarray, k: int) -> np.ndarray:
     return top[np.argsort(-scores[top])]
 
 
+def generated_store(path: Path | str, dim: int) -> Any:
+    """An empty index made by the store for generated vectors (no model: the figures that use
+    it write their own rows and query without embedding)."""
+    from pipeline.records import ChunkSettings
+    from pipeline.store.schema import FORMAT_VERSION
+    from pipeline.store.tables import Store
+
+    settings = {
+        "format_version": FORMAT_VERSION,
+        "model": "bench-generated",
+        "model_id": "bench-generated",
+        "dimension": dim,
+        "chunking": ChunkSettings().as_dict(),
+    }
+    return Store.create(path, settings)
+
+
 def search(bench: Bench) -> Figure:
     """p50/p95 of the engine's search query over generated chunks in a table made by the store,
     over an exact numpy top-k on the same vectors; recall@10 against the exact answer; and a
     doc_id-filtered search without and with a BTREE scalar index."""
     from pipeline.index import SEARCH_COLUMNS
-    from pipeline.records import ChunkSettings
-    from pipeline.store.schema import FORMAT_VERSION
-    from pipeline.store.tables import Store
     from pipeline.store.upkeep import ensure_indexes
 
     n, dim, k, per_doc = bench.sizes.search_rows, 384, 10, 10
     rng = np.random.default_rng(11)
     vectors = _clustered_unit_vectors(rng, n, dim, clusters=max(10, n // 100))
-    store = Store.create(
-        bench.workdir / f"search-{n}",
-        {
-            "format_version": FORMAT_VERSION,
-            "model": "bench-generated",
-            "model_id": "bench-generated",
-            "dimension": dim,
-            "chunking": ChunkSettings().as_dict(),
-        },
-    )
+    store = generated_store(bench.workdir / f"search-{n}", dim)
     table = store.table("chunks")
     # Ten appends, as a build commits in batches: the table holds several fragments.
     step = max(1, n // 10)
@@ -1086,14 +1096,7 @@ def many_commits(bench: Bench) -> Figure:
             a_p50.append(float(np.percentile(a_times, 50)))
             b_p50.append(float(np.percentile(b_times, 50)))
             ratios.append(a_p50[-1] / max(b_p50[-1], 1e-12))
-        return Paired(
-            ratio=statistics.median(ratios),
-            low=min(ratios),
-            high=max(ratios),
-            a_seconds=statistics.median(a_p50),
-            b_seconds=statistics.median(b_p50),
-            pairs=rounds,
-        )
+        return Paired.of(a_p50, b_p50, ratios)
 
     before_ms = flat_p50_ms()
     files_before, data_before, bytes_before = _folder_usage(index_dir)

@@ -107,12 +107,9 @@ def available_bytes() -> int | None:
 
 def _child(spec_json: str) -> None:
     """Runs inside the child: generate, write, index, query. Prints one JSON line."""
-    from bench.figures import _exact_top_k
+    from bench.figures import _exact_top_k, generated_store
     from pipeline.index import SEARCH_COLUMNS
-    from pipeline.records import ChunkSettings
     from pipeline.store import upkeep
-    from pipeline.store.schema import FORMAT_VERSION
-    from pipeline.store.tables import Store
 
     # Lance's index statistics leave the centroids out (and say nothing about it).
     os.environ.setdefault("LANCE_INCLUDE_VECTOR_CENTROIDS", "false")
@@ -125,16 +122,7 @@ def _child(spec_json: str) -> None:
     _say(f"generate {out['generate_s']:.1f} s")
 
     started = time.perf_counter()
-    store = Store.create(
-        spec["path"],
-        {
-            "format_version": FORMAT_VERSION,
-            "model": "bench-generated",
-            "model_id": "bench-generated",
-            "dimension": DIM,
-            "chunking": ChunkSettings().as_dict(),
-        },
-    )
+    store = generated_store(spec["path"], DIM)
     table = store.table("chunks")
     step = max(1, -(-n // APPENDS))
     for start in range(0, n, step):
