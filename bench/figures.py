@@ -655,16 +655,15 @@ def rescan_ratio(bench: Bench) -> Figure:
                 "info",
             ),
         ]
+    # The built index is judged at 2,000 documents (target 2.0) and at 20,000 (1.5); in between,
+    # the small-file tree carries the 20,000 figure and this row is for information.
+    built_target = 2.0 if unchanged <= 2_000 else 1.5 if unchanged >= 20_000 else None
     rows += [
         (
             f"no-change sync / walk, {unchanged} docs",
             f"{sync_ratio:.2f}",
-            ("<= 2.0" if unchanged <= 2_000 else "<= 1.5")
-            if not tree_sync or unchanged <= 2_000
-            else "",
-            _verdict(sync_ratio <= (2.0 if unchanged <= 2_000 else 1.5))
-            if not tree_sync or unchanged <= 2_000
-            else "info",
+            f"<= {built_target}" if built_target else "",
+            _verdict(sync_ratio <= built_target) if built_target else "info",
         ),
         (
             "  (info) sync, walk (medians), model load; pair ratios",

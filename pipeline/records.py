@@ -91,8 +91,8 @@ class Fingerprint(NamedTuple):
 
 
 def fingerprint_string(size: int, mtime_ns: int = 0, inode: int = 0, tag: str = "") -> str:
-    """The one layout of a stored fingerprint, ``size:mtime_ns:inode:tag``. A folder walk calls
-    it straight from stat data, so an unchanged file makes no Fingerprint object."""
+    """The one layout of a stored fingerprint, ``size:mtime_ns:inode:tag`` (``Fingerprint.key``;
+    a folder walk compares the parsed form, ``StatFingerprints``)."""
     return f"{size}:{mtime_ns}:{inode}:{tag}"
 
 
@@ -105,14 +105,8 @@ class StatFingerprints(dict[str, "tuple[int, int, int] | None"]):
     def parse(cls, unchanged_if: Mapping[str, str | None]) -> StatFingerprints:
         out = cls()
         for key, text in unchanged_if.items():
-            parts = text.split(":") if text else ()
-            if len(parts) == 4 and not parts[3]:
-                try:
-                    out[key] = (int(parts[0]), int(parts[1]), int(parts[2]))
-                    continue
-                except ValueError:
-                    pass
-            out[key] = None
+            fp = Fingerprint.parse(text)
+            out[key] = (fp.size, fp.mtime_ns, fp.inode) if fp is not None and not fp.tag else None
         return out
 
 

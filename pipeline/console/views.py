@@ -54,10 +54,12 @@ class Live:
     problems: Sequence[str] = ()
     started_at: float | None = None
     cluster: Mapping[str, Any] | None = None  # workers and tasks in flight, if one is in use
+    compaction: Mapping[str, Any] | None = None  # the service's automatic compaction
 
     def as_dict(self) -> dict[str, Any]:
         return {
             "cluster": dict(self.cluster) if self.cluster is not None else None,
+            "compaction": dict(self.compaction) if self.compaction is not None else None,
             "watching": self.watching,
             "paused": self.paused,
             "writing": self.writing,

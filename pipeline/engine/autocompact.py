@@ -231,8 +231,7 @@ class AutoCompactor:
     def new_fragments(self, store: Store) -> int:
         """Small chunks fragments written since the last compaction (counted again only when
         the chunks table has a new version, so an idle check costs no read)."""
-        table = store.table("chunks")
-        version = int(table.version)
+        version = store.version("chunks")
         if self._counted is None or self._counted[0] != version:
             self._counted = (version, small_fragments(store))
         small = self._counted[1]

@@ -23,7 +23,7 @@ import hashlib
 import logging
 import os
 import time
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 from functools import cache
 from importlib import metadata
@@ -96,8 +96,41 @@ class Job:
     ocr: bool
 
 
+def prepare_document(
+    item: SourceItem,
+    read: Callable[[], bytes],
+    same_as: str | None,
+    *,
+    ocr: bool,
+    limits: Limits,
+    chunking: ChunkSettings,
+    tokens: Any,
+    budget: int,
+) -> dict[str, Any]:
+    """Read, hash, extract and chunk one document; bad input is a result, never an exception.
+    What a cluster worker (``extract_job``) and the in-process producer thread both run.
+
+    ``same_as`` is the stored content hash: equal bytes need no extraction. The result has
+    ``error`` (and ``content_hash`` once the bytes were read), or ``content_hash`` and ``same``,
+    or ``content_hash``, ``extracted`` and ``chunks``."""
+    try:
+        data = read()
+    except ExtractionError as exc:
+        return {"error": str(exc)}
+    content_hash = sha256_hex(data)
+    if same_as == content_hash:
+        return {"content_hash": content_hash, "same": True}
+    try:
+        extracted = formats.extract(item.key, data, limits if ocr else replace(limits, ocr=False))
+        chunks = chunk_segments(item.doc_id, extracted.segments, tokens, chunking, budget)
+    except ExtractionError as exc:
+        return {"error": str(exc), "content_hash": content_hash}
+    return {"content_hash": content_hash, "extracted": extracted, "chunks": chunks}
+
+
 def extract_job(spec: str, chunking: ChunkSettings, limits: Limits, job: Job) -> dict[str, Any]:
-    """Read (or take), hash, extract and chunk one document; never raises for bad input."""
+    """Read (or take), hash, extract and chunk one document on a worker; never raises for bad
+    input."""
     if job.read_error is not None:
         return {"error": job.read_error}
     data = job.data
@@ -105,28 +138,21 @@ def extract_job(spec: str, chunking: ChunkSettings, limits: Limits, job: Job) ->
         root = getattr(job.source, "root", None)
         if root is not None and not Path(root).is_dir():
             return {"unreachable": f"the folder {root} is not there on this worker"}
-        try:
-            data = job.source.read(job.item.key, limits.max_file_bytes)
-        except ExtractionError as exc:
-            return {"error": str(exc)}
-    content_hash = sha256_hex(data)
-    if job.same_as == content_hash:
-        return {"content_hash": content_hash, "same": True}
+
+    def read() -> bytes:
+        return data if data is not None else job.source.read(job.item.key, limits.max_file_bytes)
+
     embedder = _model(spec)
-    try:
-        extracted = formats.extract(
-            job.item.key, data, limits if job.ocr else replace(limits, ocr=False)
-        )
-        chunks = chunk_segments(
-            job.item.doc_id,
-            extracted.segments,
-            embedder.tokens,
-            chunking,
-            embedder.max_input_tokens,
-        )
-    except ExtractionError as exc:
-        return {"error": str(exc), "content_hash": content_hash}
-    return {"content_hash": content_hash, "extracted": extracted, "chunks": chunks}
+    return prepare_document(
+        job.item,
+        read,
+        job.same_as,
+        ocr=job.ocr,
+        limits=limits,
+        chunking=chunking,
+        tokens=embedder.tokens,
+        budget=embedder.max_input_tokens,
+    )
 
 
 def embed_job(spec: str, texts: list[str]) -> np.ndarray:

@@ -14,6 +14,7 @@ written and its tombstones already logged, and writes only what is missing.
 from __future__ import annotations
 
 import dataclasses
+import functools
 import json
 import logging
 import time
@@ -29,7 +30,7 @@ from connectors.base import Source
 from pipeline import defaults, formats
 from pipeline.chunking import chunk_segments
 from pipeline.embedding.base import Embedder
-from pipeline.engine.cluster import Cluster, LazyCluster, Prepared
+from pipeline.engine.cluster import Cluster, LazyCluster, Prepared, prepare_document
 from pipeline.engine.recovery import recover_interrupted_batch
 from pipeline.engine.reports import OUTCOMES, CommitResult, Counts, Failure, SyncReport
 from pipeline.errors import ConfirmationRequired, ExtractionError, SourceError
@@ -714,40 +715,22 @@ class SyncEngine:
         # The model's tokenizer is loaded here, on the writer's thread, before the producer
         # needs it: a deferred embedder is not loaded from two threads at once.
         tokens, budget = self.embedder.tokens, self.embedder.max_input_tokens
+        max_bytes = self.limits.max_file_bytes
         futures = {
             item.doc_id: producer.submit(
-                self._prepare, source, item, known.get(item.doc_id), ocr, tokens, budget
+                prepare_document,
+                item,
+                functools.partial(source.read, item.key, max_bytes),
+                (known.get(item.doc_id) or {}).get("content_hash"),
+                ocr=ocr,
+                limits=self.limits,
+                chunking=self.chunking,
+                tokens=tokens,
+                budget=budget,
             )
             for item in items
         }
         return _Ahead(futures)
-
-    def _prepare(
-        self,
-        source: Source,
-        item: SourceItem,
-        row: dict[str, Any] | None,
-        ocr: bool,
-        tokens: Any,
-        budget: int,
-    ) -> dict[str, Any]:
-        """Read, hash, extract and chunk one document on the producer thread; the result has
-        the shape of a cluster worker's (``cluster.extract_job``), and bad input is a result,
-        never an exception."""
-        try:
-            data = source.read(item.key, self.limits.max_file_bytes)
-        except ExtractionError as exc:
-            return {"error": str(exc)}
-        content_hash = sha256_hex(data)
-        if row is not None and row["content_hash"] == content_hash:
-            return {"content_hash": content_hash, "same": True}
-        limits = self.limits if ocr else dataclasses.replace(self.limits, ocr=False)
-        try:
-            extracted = formats.extract(item.key, data, limits)
-            chunks = chunk_segments(item.doc_id, extracted.segments, tokens, self.chunking, budget)
-        except ExtractionError as exc:
-            return {"error": str(exc), "content_hash": content_hash}
-        return {"content_hash": content_hash, "extracted": extracted, "chunks": chunks}
 
     def _extract(
         self, item: SourceItem, data: bytes, moved_from: str | None, *, ocr: bool = True

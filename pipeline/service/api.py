@@ -244,9 +244,6 @@ class _Handler(BaseHTTPRequestHandler):
             live = self.server.service.live()
             data = reader.read(lambda index: views.overview(index, live))
             data["service"]["pid"] = os.getpid()
-            compaction = getattr(self.server.service, "compaction_status", None)
-            if compaction is not None:  # `upwell serve` writes nothing, so it has none
-                data["service"]["compaction"] = compaction()
             return data
         if twin == "/search":
             with self._searching():

@@ -129,10 +129,6 @@ class Service:
     def queue_depth(self) -> int:
         return len(self.settle) + self.work.depth()
 
-    def compaction_status(self) -> dict[str, Any]:
-        """The automatic compaction: its policy, whether one is due or waiting, the last run."""
-        return self.compactor.status()
-
     def live(self) -> Live:
         """What the console and ``/status`` show of the service beside the index's own record."""
         return Live(
@@ -149,6 +145,7 @@ class Service:
             problems=self.problems(),
             started_at=self.started_at,
             cluster=self.index.cluster_status(),
+            compaction=self.compactor.status(),
         )
 
     # --- life cycle -------------------------------------------------------------------------
