@@ -239,9 +239,17 @@ def _fit(
 ) -> int:
     """Largest end <= ``end`` whose joined text really fits: token counts of a joined string can
     differ from the sum of its parts' counts with some tokenizers."""
-    while end - start > 1 and counter.count_one(_join(units[start:end])) > text_limit:
+    while end - start > 1 and _joined_tokens(units[start:end], counter) > text_limit:
         end -= 1
     return end
+
+
+def _joined_tokens(units: Sequence[_Unit], counter: TokenCounter) -> int:
+    """Tokens of ``_join(units)``: the sum of the units' counts where the tokenizer splits at
+    whitespace (``counter.additive``), else counted on the joined text."""
+    if counter.additive:
+        return sum(unit.tokens for unit in units)
+    return counter.count_one(_join(units))
 
 
 # --- chunks ----------------------------------------------------------------------------------
@@ -282,15 +290,24 @@ def chunk_segments(
         )
         context = _join(context_units)
         embed_text = join_context(context, text)
-        tokens = counter.count_one(embed_text)
+        tokens = _embed_tokens(members, context_units, embed_text, counter)
         while tokens > max_input_tokens and context_units:
             context_units = context_units[1:]
             context = _join(context_units)
             embed_text = join_context(context, text)
-            tokens = counter.count_one(embed_text)
+            tokens = _embed_tokens(members, context_units, embed_text, counter)
         chunks.append(_make_chunk(doc_id, ordinal, members, text, context, embed_text, tokens))
         previous = (start, end)
     return chunks
+
+
+def _embed_tokens(
+    members: Sequence[_Unit], context: Sequence[_Unit], embed_text: str, counter: TokenCounter
+) -> int:
+    # join_context puts a newline between context and text: whitespace, so no token of its own.
+    if counter.additive:
+        return _joined_tokens(context, counter) + _joined_tokens(members, counter)
+    return counter.count_one(embed_text)
 
 
 def _context(previous: Sequence[_Unit], overlap_tokens: int, counter: TokenCounter) -> list[_Unit]:
@@ -302,7 +319,7 @@ def _context(previous: Sequence[_Unit], overlap_tokens: int, counter: TokenCount
             break
         taken.insert(0, unit)
         total += unit.tokens
-    while taken and counter.count_one(_join(taken)) > overlap_tokens:
+    while taken and _joined_tokens(taken, counter) > overlap_tokens:
         taken = taken[1:]
     return taken
 

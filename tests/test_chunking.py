@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import collections
 import hashlib
+import json
 import random
 import sys
 import time
@@ -17,7 +18,7 @@ from hypothesis import strategies as st
 
 from pipeline.chunking import chunk_segments, split_sentences
 from pipeline.records import CUE, LIST_ITEM, PARAGRAPH, TABLE_ROW, Anchor, ChunkSettings, Segment
-from pipeline.tokens import TokenCounter
+from pipeline.tokens import DEFAULT_TOKENIZER, TokenCounter
 
 COUNTER = TokenCounter()
 # A modulus no 64-bit hash is likely to divide: no content cuts, only heading and maximum cuts.
@@ -205,6 +206,50 @@ def test_chunks_are_deterministic_cover_the_text_once_and_fit_the_model(
         assert chunk.tokens == COUNTER.count_one(chunk.embed_text) <= max_input
         assert chunk.text_hash == sha256(chunk.embed_text)
         assert not chunk.context or chunk.embed_text.startswith(chunk.context + "\n")
+
+
+class _Recounting(TokenCounter):
+    """The bundled tokenizer with the shortcut off: every joined text is counted again."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.additive = False
+
+
+RECOUNTING = _Recounting()
+
+
+@settings(max_examples=100, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(segments=SEGMENTS, chunk_settings=SETTINGS, max_input=st.integers(16, 254))
+def test_summed_counts_give_the_chunks_that_counting_every_joined_text_gives(
+    segments: list[Segment], chunk_settings: ChunkSettings, max_input: int
+) -> None:
+    # The bundled WordPiece tokenizer splits at whitespace first, so the chunker adds up unit
+    # counts instead of tokenizing each joined text again; the tokenizer itself is the reference.
+    assert COUNTER.additive
+    assert chunk_segments("share:x", segments, COUNTER, chunk_settings, max_input) == (
+        chunk_segments("share:x", segments, RECOUNTING, chunk_settings, max_input)
+    )
+
+
+def test_a_tokenizer_that_does_not_split_at_whitespace_is_counted_on_the_joined_text(
+    tmp_path,
+) -> None:
+    # With no pre-tokenizer, WordPiece sees the whole text as one word: a text past its word
+    # length limit (100 characters in the bundled file) becomes one unknown token, so the count
+    # of a joined text is not the sum of its parts' counts and must not be taken as one.
+    config = json.loads(DEFAULT_TOKENIZER.read_text(encoding="utf-8"))
+    config["pre_tokenizer"] = None
+    path = tmp_path / "tokenizer.json"
+    path.write_text(json.dumps(config), encoding="utf-8")
+    counter = TokenCounter(path)
+    assert not counter.additive
+    parts = ["Spoke tension is checked weekly.", "The hub bearing is greased in spring."] * 2
+    assert counter.count_one(" ".join(parts)) != sum(counter.count(parts))
+    segments = [Segment(" ".join(parts * 20), Anchor())]
+    chunks = chunk_segments("share:x", segments, counter, ChunkSettings(max_tokens=30), 30)
+    assert all(c.tokens == counter.count_one(c.embed_text) <= 30 for c in chunks)
+    assert squash("".join(c.text for c in chunks)) == squash(segments[0].text)
 
 
 def test_a_giant_single_sentence_fits_the_model() -> None:

@@ -15,7 +15,8 @@ from docx.oxml.ns import nsdecls, qn
 from pipeline.errors import CorruptDocument
 from pipeline.formats import extract
 from pipeline.formats.text import normalise_text
-from pipeline.records import HEADING, LIST_ITEM, PARAGRAPH, TABLE_ROW
+from pipeline.records import HEADING, LIST_ITEM, PARAGRAPH, TABLE_ROW, Limits
+from tests.conftest import SAMPLE_CORPUS
 from tests.support.formats import comparable_words, word_similarity
 
 # WordprocessingML main namespace (ECMA-376 Part 1, 17; from memory).
@@ -789,3 +790,70 @@ def test_a_damaged_notes_part_is_a_clear_failure():
             dst.writestr(item, content[:40] if item.filename == "word/footnotes.xml" else content)
     with pytest.raises(CorruptDocument, match="notes part"):
         extract("bleeding.docx", out.getvalue())
+
+
+# --- paragraph styles ---------------------------------------------------------------------------
+
+
+def _python_docx_chain(paragraph) -> list[str]:
+    """The style chain as python-docx itself walks it: Paragraph.style, then base_style."""
+    names, style = [], paragraph.style
+    while style is not None and len(names) < 10:
+        names.append((style.name or "").lower())
+        style = style.base_style
+    return names
+
+
+def _style_maze_docx() -> bytes:
+    """Paragraphs whose styles python-docx resolves in every way it can: own style, none (the
+    default), a missing id, a character style's id, a based-on chain, a based-on cycle."""
+    document = docx.Document()
+    styles = document.styles
+    from docx.enum.style import WD_STYLE_TYPE
+
+    base = styles.add_style("Marrowby Base", WD_STYLE_TYPE.PARAGRAPH)
+    base.base_style = styles["Heading 2"]
+    derived = styles.add_style("Marrowby Step", WD_STYLE_TYPE.PARAGRAPH)
+    derived.base_style = base
+    loop_a = styles.add_style("Loop A", WD_STYLE_TYPE.PARAGRAPH)
+    loop_b = styles.add_style("Loop B", WD_STYLE_TYPE.PARAGRAPH)
+    loop_a.base_style, loop_b.base_style = loop_b, loop_a
+    styles.add_style("Marrowby Emphasis", WD_STYLE_TYPE.CHARACTER)
+    document.add_paragraph("Fit the bottom bracket shell guard.")
+    document.add_paragraph("Torque the crank bolts.", style="Marrowby Step")
+    document.add_paragraph("Round and round the workshop.", style="Loop A")
+    document.add_paragraph("Record the chain length.", style="List Bullet")
+    missing = document.add_paragraph("A style id nothing defines.")
+    missing.style = "Marrowby Base"
+    missing._p.pPr.find(qn("w:pStyle")).set(qn("w:val"), "NoSuchStyle")
+    character = document.add_paragraph("A character style's id on a paragraph.")
+    character.style = "Marrowby Base"
+    character._p.pPr.find(qn("w:pStyle")).set(qn("w:val"), "MarrowbyEmphasis")
+    return _save(document)
+
+
+def test_style_chains_are_the_ones_python_docx_walks():
+    from pipeline.formats.docx import _Styles
+
+    # Reference: python-docx's own Paragraph.style / BaseStyle.base_style, on the sample
+    # procedures and on a document built to reach each of its look-up rules.
+    sources = [_style_maze_docx(), _procedure_docx()]
+    sources += [path.read_bytes() for path in sorted(SAMPLE_CORPUS.rglob("*.docx"))]
+    checked = 0
+    for data in sources:
+        document = docx.Document(io.BytesIO(data))
+        styles = _Styles(document.styles.element)
+        for paragraph in document.paragraphs:
+            assert [s.name for s in styles.chain(paragraph)] == _python_docx_chain(paragraph)
+            checked += 1
+    assert checked > 40
+
+
+def test_a_heading_reached_through_a_based_on_chain_is_a_heading():
+    segments = extract("procedures/maze.docx", _style_maze_docx(), Limits()).segments
+    kinds = {segment.text: segment.kind for segment in segments}
+    # "Marrowby Step" is based on "Marrowby Base", which is based on "Heading 2".
+    assert kinds["Torque the crank bolts."] == HEADING
+    assert kinds["Record the chain length."] == LIST_ITEM
+    assert kinds["Fit the bottom bracket shell guard."] == PARAGRAPH
+    assert kinds["Round and round the workshop."] == PARAGRAPH
