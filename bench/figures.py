@@ -309,9 +309,14 @@ def _raw_embed_in_child(
     interpreter (its model load and a warm-up call are not timed). Given ``corpus``, the child
     first writes that file: the corpus's chunk texts (``_corpus_chunk_texts``)."""
     code = "import sys; from bench.figures import _raw_embed_child; _raw_embed_child(sys.argv[1])"
-    spec = {"texts": str(texts_file), "model": model, "corpus": corpus and str(corpus)}
+    spec = {
+        "texts": str(texts_file),
+        "model": model,
+        "corpus": corpus and str(corpus),
+        "sample": sample,
+    }
     output = subprocess.run(
-        [sys.executable, "-c", code, json.dumps(spec | {"sample": sample})],
+        [sys.executable, "-c", code, json.dumps(spec)],
         cwd=REPO,
         stdout=subprocess.PIPE,
         text=True,

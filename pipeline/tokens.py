@@ -26,6 +26,7 @@ _PER_CHARACTER_NORMALIZERS = frozenset(
 )
 
 
+@lru_cache(maxsize=4)
 def _splits_at_whitespace(path: str) -> bool:
     """Whether the tokenizer in ``path`` tokenizes each whitespace-separated word on its own."""
     try:
